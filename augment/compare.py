@@ -1,0 +1,177 @@
+"""Compare: each probe's ideal, local and probed readings on one base, and their error.
+
+``ideal`` is V(plus net) - V(minus net) in the original netlist; ``local`` is what a zero-area
+probe reads along the straight path between the two points in the augmented circuit;
+``probed`` is the voltage at the instrument input with this lead geometry. The error is
+probed - ideal; its ringing and the share of induced EMF from each conductor say where it
+comes from.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from augment.errors import SimulatorError
+from augment.synthesis import DERIVATIVE_HENRY, Augmented, ProbeNodes
+
+RINGING_MIN_PERIODS = 3
+RINGING_THRESHOLD = 0.05  # of the error's peak after the edge (SPEC)
+
+
+@dataclass(frozen=True, slots=True)
+class Contribution:
+    """Induced EMF in a probe loop from one current-carrying conductor."""
+
+    source: str  # conductor id
+    mutual_h: float
+    peak_v: float
+
+
+@dataclass(frozen=True, slots=True)
+class Reading:
+    """One probe's three waveforms (complex for AC) and the figures derived from them."""
+
+    probe: ProbeNodes
+    ideal: np.ndarray
+    local: np.ndarray
+    probed: np.ndarray
+    ringing_hz: float | None
+    contributions: tuple[Contribution, ...]
+
+    @property
+    def error(self) -> np.ndarray:
+        return self.probed - self.ideal
+
+
+@dataclass(frozen=True, slots=True)
+class Comparison:
+    """All readings on their common base (time in s, or frequency in Hz)."""
+
+    analysis: str
+    base: np.ndarray
+    readings: tuple[Reading, ...]
+
+
+def _node_voltage(vectors: Mapping[str, np.ndarray], node: str, size: int, which: str) -> np.ndarray:
+    if node == "0":
+        return np.zeros(size)
+    try:
+        return np.asarray(vectors[node.lower()])
+    except KeyError:
+        raise SimulatorError(f"the {which} simulation has no vector for node '{node}'") from None
+
+
+def _base(vectors: Mapping[str, np.ndarray], analysis: str) -> np.ndarray:
+    key = "frequency" if analysis == "ac" else "time"
+    base = np.asarray(vectors[key])
+    return base.real if np.iscomplexobj(base) else base
+
+
+def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> float | None:
+    """Frequency of the oscillation in ``error`` after the largest edge of ``ideal``.
+
+    The edge is the sample of steepest |d ideal/dt| (of the error itself when the ideal
+    waveform is flat). After it, the error is taken about its settled value (the mean of its
+    last tenth) and its crossings of that value are counted while each half-cycle's peak
+    stays above 5 % of the largest; fewer than three periods mean no ringing (None).
+    The frequency is the number of half-periods over the time they span, with crossing
+    instants interpolated linearly between samples.
+    """
+    if len(base) < 8:
+        return None
+    slope = np.abs(np.gradient(ideal, base))
+    if not np.any(slope > 0):
+        slope = np.abs(np.gradient(error, base))
+    start = int(np.argmax(slope))
+    t, x = base[start:], error[start:]
+    if len(x) < 8:
+        return None
+    x = x - x[-max(1, len(x) // 10) :].mean()
+    peak = np.max(np.abs(x))
+    if peak == 0:
+        return None
+    sign = np.signbit(x)
+    crossings = np.nonzero(sign[1:] != sign[:-1])[0]
+    if len(crossings) < 2 * RINGING_MIN_PERIODS + 1:
+        return None
+    # keep crossings while the half-cycle before each is still above the threshold
+    kept = [crossings[0]]
+    for a, b in zip(crossings[:-1], crossings[1:]):
+        if np.max(np.abs(x[a : b + 1])) < RINGING_THRESHOLD * peak:
+            break
+        kept.append(b)
+    if len(kept) < 2 * RINGING_MIN_PERIODS + 1:
+        return None
+    k = np.asarray(kept)
+    instants = t[k] - x[k] * (t[k + 1] - t[k]) / (x[k + 1] - x[k])
+    span = instants[-1] - instants[0]
+    return float((len(instants) - 1) / (2 * span)) if span > 0 else None
+
+
+def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Mapping) -> Comparison:
+    """Put every probe's readings on one base and derive its error figures."""
+    analysis = augmented.analysis
+    base = _base(augmented_vectors, analysis)
+    ideal_base = _base(ideal_vectors, analysis)
+    size = len(base)
+    readings = []
+    derivative = {
+        cid: _node_voltage(augmented_vectors, node, size, "augmented") / DERIVATIVE_HENRY
+        for cid, node in augmented.derivative_nodes.items()
+    }
+    for probe in augmented.probes:
+        ideal = _node_voltage(ideal_vectors, probe.plus_net, len(ideal_base), "original") - _node_voltage(
+            ideal_vectors, probe.minus_net, len(ideal_base), "original"
+        )
+        if len(ideal_base) != size or not np.allclose(ideal_base, base, rtol=1e-9, atol=0):
+            # both runs use the same grid (.options interp); this only guards odd cases
+            ideal = np.interp(base, ideal_base, ideal.real) + (
+                1j * np.interp(base, ideal_base, ideal.imag) if np.iscomplexobj(ideal) else 0
+            )
+        local = _node_voltage(augmented_vectors, probe.local_node, size, "augmented")
+        probed = _node_voltage(augmented_vectors, probe.probed_node, size, "augmented")
+        contributions = sorted(
+            (
+                Contribution(cid, m, float(np.max(np.abs(m * derivative[cid]))) if size else 0.0)
+                for cid, m in augmented.probe_mutuals[probe.name].items()
+                if m != 0.0 and cid in derivative
+            ),
+            key=lambda c: -c.peak_v,
+        )
+        ringing = None
+        if analysis == "tran":
+            ringing = ringing_frequency(base, ideal, probed - ideal)
+        readings.append(Reading(probe, ideal, local, probed, ringing, tuple(contributions)))
+    return Comparison(analysis, base, tuple(readings))
+
+
+def _rms(base: np.ndarray, values: np.ndarray) -> float:
+    magnitude = np.abs(values) ** 2
+    if len(base) < 2 or base[-1] == base[0]:
+        return float(np.sqrt(magnitude.mean())) if len(values) else 0.0
+    return float(np.sqrt(np.trapezoid(magnitude, base) / (base[-1] - base[0])))
+
+
+def summary(comparison: Comparison, reading: Reading) -> dict:
+    """The figures of one probe, keyed as in the result document (SPEC)."""
+
+    def span(values: np.ndarray) -> tuple[float, float]:
+        v = np.abs(values) if np.iscomplexobj(values) else values
+        return (float(v.min()), float(v.max())) if len(v) else (math.nan, math.nan)
+
+    row: dict = {"name": reading.probe.name}
+    for label in ("ideal", "local", "probed"):
+        lo, hi = span(getattr(reading, label))
+        row[f"{label}_min"], row[f"{label}_max"], row[f"{label}_pp"] = lo, hi, hi - lo
+    error = reading.error
+    row["max_abs_error"] = float(np.max(np.abs(error))) if len(error) else 0.0
+    row["rms_error"] = _rms(comparison.base, error)
+    row["ringing_hz"] = reading.ringing_hz
+    row["contributions"] = [
+        {"source": c.source, "mutual_h": c.mutual_h, "peak_v": c.peak_v} for c in reading.contributions
+    ]
+    return row

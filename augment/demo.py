@@ -1,0 +1,35 @@
+"""The built-in scenario of `augment demo`: runs with no argument and says where its report is."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+SCENARIOS = Path(__file__).parent / "scenarios"
+CASES = (
+    ("sensing_loop", "a pulsed coil threads a loop of 10 and 90 ohm; probed from either side and twisted"),
+    ("fast_edge", "a 1 ns edge into 1 k, probed with a 15 cm ground lead and with a spring ground"),
+)
+
+
+def run_demo(out_dir: Path) -> list[dict]:
+    """Run every built-in scenario into ``out_dir/NAME`` and print a table for each.
+
+    The demo replaces its own report folders from an earlier run.
+    """
+    from augment.pipeline import SAFETY_NOTE, run
+    from augment.report import format_probe_table
+
+    documents = []
+    for name, what in CASES:
+        click.echo(f"== {name}: {what}", err=True)
+        document = run(SCENARIOS / f"{name}.cir", SCENARIOS / f"{name}.toml", out_dir / name, force=True)
+        for line in document["warnings"]:
+            click.echo(f"warning: {line}", err=True)
+        click.echo(format_probe_table(document))
+        click.echo(f"report: {out_dir / name}/", err=True)
+        documents.append(document)
+    click.echo(f"\nThe demo's reports are in {out_dir}/ (result.json, readings.csv, one PNG per probe).", err=True)
+    click.echo(f"Caution: {SAFETY_NOTE}", err=True)
+    return documents

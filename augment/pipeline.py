@@ -1,0 +1,160 @@
+"""The pipeline end to end, as plain functions the CLI and the batch runner call.
+
+parse netlist -> load side-file -> conductor graph -> inductance -> synthesis ->
+simulate (original and augmented) -> compare. Writing the report is the caller's step.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from augment.conductors import ConductorGraph, build_graph
+from augment.inductance import InductanceMatrix, extract
+from augment.netlist import Netlist, parse_netlist
+from augment.sidefile import load_sidefile
+from augment.synthesis import Augmented, SynthesisOptions, synthesize
+
+SAFETY_NOTE = (
+    "Probing powered circuits can hurt you and damage equipment: mains and high voltage call "
+    "for rated differential probes or isolation, never a floated scope ground; follow your "
+    "local electrical codes and licensed practice."
+)
+
+
+@dataclass(frozen=True, slots=True)
+class Built:
+    """What the stages before the simulator produced for one netlist and side-file."""
+
+    netlist: Netlist
+    graph: ConductorGraph
+    inductance: InductanceMatrix
+    augmented: Augmented
+    warnings: tuple[str, ...]
+    timings_s: dict = field(default_factory=dict)
+
+
+def build(netlist_path: str | Path, sidefile_path: str | Path, options: SynthesisOptions = SynthesisOptions()) -> Built:
+    """Parse, load, extract and synthesize; raises the project's errors on bad input."""
+    timings: dict[str, float] = {}
+    t0 = time.perf_counter()
+    netlist = parse_netlist(netlist_path)
+    timings["parse"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    sidefile = load_sidefile(sidefile_path, netlist)
+    graph = build_graph(sidefile, netlist)
+    timings["geometry"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    inductance = extract(graph)
+    timings["extract"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    augmented = synthesize(netlist, graph, inductance, options, sidefile_name=Path(sidefile_path).name)
+    timings["build"] = time.perf_counter() - t0
+    return Built(netlist, graph, inductance, augmented, (*graph.warnings, *augmented.notes), timings)
+
+
+def simulate_and_compare(built: Built, simulator):
+    """Run the original and the augmented netlist on one simulator and compare them."""
+    from augment.compare import compare
+
+    name = Path(built.netlist.path).name
+    t0 = time.perf_counter()
+    ideal = simulator.run(built.augmented.original_text, name=name)
+    built.timings_s["simulate_ideal"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    augmented = simulator.run(built.augmented.text, name=f"{name} (augmented)")
+    built.timings_s["simulate_augmented"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    comparison = compare(built.augmented, ideal.vectors, augmented.vectors)
+    built.timings_s["compare"] = time.perf_counter() - t0
+    return comparison, ideal, augmented
+
+
+def result_document(built: Built, comparison, sidefile_path: str | Path, elapsed_s: float) -> dict:
+    """The result document of SPEC (`augment run --json`)."""
+    from augment.compare import summary
+
+    probes = []
+    for reading in comparison.readings:
+        row = summary(comparison, reading)
+        instrument = reading.probe.instrument
+        row["instrument"] = {
+            "name": instrument.name,
+            "resistance": _finite_or_none(instrument.resistance),
+            "capacitance": instrument.capacitance,
+            "bandwidth": instrument.bandwidth,
+        }
+        row["conductor"] = reading.probe.conductor
+        row["lead_length_m"] = reading.probe.lead_length_m
+        row["paths"] = {
+            "ideal": f"V({reading.probe.plus_net}) - V({reading.probe.minus_net}) in the original netlist",
+            "local": f"straight path from the plus to the minus point (local:{reading.probe.name}, zero area)",
+            "probed": f"along the leads of {reading.probe.conductor} through the instrument",
+        }
+        probes.append(row)
+    return {
+        "netlist": str(built.netlist.path),
+        "sidefile": str(sidefile_path),
+        "analysis": comparison.analysis,
+        "probes": probes,
+        "inductors": built.augmented.inductors,
+        "couplings": built.augmented.couplings,
+        "elapsed_s": elapsed_s,
+        "timings_s": dict(built.timings_s),
+        "coil_segments_per_turn": built.graph.coil_segments_per_turn,
+        "warnings": list(built.warnings),
+        "caution": SAFETY_NOTE,
+    }
+
+
+def _finite_or_none(value: float) -> float | None:
+    return value if value != float("inf") else None
+
+
+def run(
+    netlist_path: str | Path,
+    sidefile_path: str | Path,
+    out_dir: str | Path | None,
+    options: SynthesisOptions = SynthesisOptions(),
+    *,
+    force: bool = False,
+    timeout_s: float = 300.0,
+    simulator=None,
+) -> dict:
+    """Build, simulate, compare and (when ``out_dir`` is given) write the report folder.
+
+    Returns the result document. ``simulator`` lets a batch worker reuse its own ngspice
+    worker process; otherwise one is started for this run.
+    """
+    from augment.report import write_report
+    from augment.simulate import Simulator
+
+    start = time.perf_counter()
+    inputs = [Path(netlist_path), Path(sidefile_path)]
+    if out_dir is not None:
+        _check_output_dir(Path(out_dir), inputs, force)
+    built = build(netlist_path, sidefile_path, options)
+    if simulator is None:
+        with Simulator(timeout_s=timeout_s) as own:
+            comparison, _, _ = simulate_and_compare(built, own)
+    else:
+        comparison, _, _ = simulate_and_compare(built, simulator)
+    document = result_document(built, comparison, sidefile_path, time.perf_counter() - start)
+    if out_dir is not None:
+        write_report(Path(out_dir), built, comparison, document, force=force)
+    return document
+
+
+def _check_output_dir(out_dir: Path, inputs: list[Path], force: bool) -> None:
+    from augment.errors import OptionError
+
+    resolved = out_dir.resolve()
+    for path in inputs:
+        p = path.resolve()
+        if p == resolved or resolved in p.parents:
+            raise OptionError(str(out_dir), f"the report folder would hold or replace the input {path}; choose another -o")
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OptionError(str(out_dir), "exists and is not a folder")
+    if out_dir.exists() and any(out_dir.iterdir()) and not force:
+        raise OptionError(str(out_dir), "report folder exists and is not empty; use --force to replace it")

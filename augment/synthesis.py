@@ -1,0 +1,449 @@
+"""Synthesis: the augmented netlist, with series inductors, K couplings and probe models.
+
+Takes the parsed netlist, the conductor graph and the lumped inductance matrix, and writes a
+netlist that ngspice runs and a reviewer can read: every added line carries its conductor id,
+the user's lines stay verbatim except the elements whose terminals were rewired.
+
+How a probe reads (Romer, Am. J. Phys. 50(12), 1982): the instrument sees the potential
+difference of its two points minus the EMF induced along its own leads,
+``V_inst = V(plus) - V(minus) - L_p di_p/dt - sum_j M_pj dI_j/dt``. By default the probe is
+coupled one way (PHYSICS.md): a high-impedance probe draws almost no current, so its leads do
+not act back on the circuit; the EMF is built from linear controlled sources fed by
+dI_j/dt of each current-carrying conductor, and the probe loop's own self inductance stays a
+real inductor so the lead rings with the instrument's input capacitance.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from augment.conductors import ConductorGraph
+from augment.errors import NetlistError
+from augment.inductance import InductanceMatrix, check_positive_definite, coupling_coefficients
+from augment.netlist import Element, Netlist, write_netlist
+
+# The derivative sensors feed I_j into an inductor of this value, so their node voltage is
+# DERIVATIVE_HENRY * dI_j/dt: volts of order one for nanohenry mutuals and ampere-per-ns edges.
+DERIVATIVE_HENRY = 1e-9
+CURRENT_CARRYING = ("wire", "body", "coil", "aggressor")
+ANALYSIS_KINDS = ("tran", "ac", "dc", "op", "noise")
+
+
+@dataclass(frozen=True, slots=True)
+class SynthesisOptions:
+    """Choices the user makes on the command line."""
+
+    coupling: str = "one-way"  # or "full": probe loops K-coupled to everything
+    kmin: float = 1e-6  # couplings below this |k| are dropped when the matrix stays definite
+    analysis: str | None = None  # an analysis line that overrides netlist and side-file
+
+
+@dataclass(frozen=True, slots=True)
+class ProbeNodes:
+    """Where one probe's readings live in the two simulations."""
+
+    name: str
+    plus_net: str  # original node of the plus point (for the ideal reading)
+    minus_net: str
+    probed_node: str  # node whose voltage (to ground) is the probed reading
+    local_node: str  # node whose voltage is the zero-area reading
+    instrument: object  # the side-file's Instrument
+    conductor: str  # the probe loop's conductor id
+    lead_length_m: float
+
+
+@dataclass(frozen=True, slots=True)
+class Augmented:
+    """The augmented netlist and what later stages need to read its results."""
+
+    text: str
+    original_text: str  # the original netlist as simulated (same analysis, no .control)
+    analysis: str
+    probes: tuple[ProbeNodes, ...]
+    derivative_nodes: Mapping[str, str]  # conductor id -> node holding DERIVATIVE_HENRY * dI/dt
+    probe_mutuals: Mapping[str, Mapping[str, float]]  # probe -> conductor id -> M (H)
+    inductor_names: Mapping[str, str]  # conductor id -> the inductor that realises it
+    inductors: int
+    couplings: int
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+
+class _NameBook:
+    """Hands out SPICE names that cannot collide with the user's or with each other."""
+
+    def __init__(self, taken: Iterable[str]):
+        self._taken = {name.lower() for name in taken}
+
+    def claim(self, wanted: str) -> str:
+        base = re.sub(r"[^A-Za-z0-9_]", "_", wanted)
+        name, n = base, 1
+        while name.lower() in self._taken:
+            n += 1
+            name = f"{base}_{n}"
+        self._taken.add(name.lower())
+        return name
+
+
+def _value(x: float) -> str:
+    return f"{x:.9g}"
+
+
+def _inductor_name(conductor_id: str) -> str:
+    kind, _, rest = conductor_id.partition(":")
+    tag = {"wire": "", "body": "B_", "coil": "C_", "aggressor": "A_", "probe": "P_"}[kind]
+    return "LX_" + tag + rest.replace(":", "_").replace("/", "_")
+
+
+def choose_analysis(netlist: Netlist, graph: ConductorGraph, override: str | None) -> str:
+    """The analysis line both simulations run: option, then side-file, then the netlist's own."""
+    if override:
+        line = override.strip()
+        return line if line.startswith(".") else "." + line
+    for kind in ("tran", "ac"):
+        if kind in graph.analysis:
+            return f".{kind} {graph.analysis[kind]}"
+    for directive in netlist.analyses:
+        if directive.kind in ("tran", "ac"):
+            return f".{directive.kind} {directive.args}"
+    raise NetlistError(
+        f"{netlist.path}:1:1",
+        "no .tran or .ac analysis: add one to the netlist or an [analysis] table to the side-file",
+    )
+
+
+def _simulation_text(netlist: Netlist, analysis: str, added: list[str]) -> str:
+    tail = [*added, ".options interp", ".save all", analysis]
+    rewritten = netlist.replace(added=tail)
+    return write_netlist(rewritten, keep_control=False, keep_analyses=False)
+
+
+def _node_names(netlist: Netlist, graph: ConductorGraph, book: _NameBook) -> dict[str, str]:
+    """One node per junction; the net's root keeps the user's node name; ideal joins merge."""
+    parent = {jid: jid for jid in graph.junctions}
+
+    def find(j: str) -> str:
+        while parent[j] != j:
+            parent[j] = parent[parent[j]]
+            j = parent[j]
+        return j
+
+    roots = set(graph.net_root.values())
+    for a, b in graph.ideal_joins:
+        ra, rb = find(a), find(b)
+        if ra != rb:
+            # keep a net root as the representative so the user's name survives
+            if rb in roots:
+                ra, rb = rb, ra
+            parent[rb] = ra
+    names: dict[str, str] = {}
+    root_of_net = {find(j): net for net, j in graph.net_root.items()}
+    for jid in graph.junctions:
+        rep = find(jid)
+        if rep not in names:
+            net = root_of_net.get(rep)
+            names[rep] = net if net is not None else book.claim(f"{graph.junctions[rep].net}_j")
+        names[jid] = names[rep]
+    return names
+
+
+def _rewired_elements(
+    netlist: Netlist, graph: ConductorGraph, node_of: Mapping[str, str], book: _NameBook
+) -> tuple[dict[str, Element], dict[str, str]]:
+    """Elements whose placed terminals moved to their junction nodes; body inner nodes."""
+    bodies = {c.element.lower(): c for c in graph.conductors if c.kind == "body"}
+    terminals: dict[str, dict[int, str]] = {}
+    for (element, index), jid in graph.terminals.items():
+        terminals.setdefault(element.lower(), {})[index] = node_of[jid]
+    changed: dict[str, Element] = {}
+    body_inner: dict[str, str] = {}
+    for key, moved in terminals.items():
+        element = netlist.element(key)
+        nodes = list(element.nodes)
+        for index, node in moved.items():
+            nodes[index - 1] = node
+        if key in bodies:
+            # the body inductor sits on terminal 1's side, from the junction to an inner node
+            inner = book.claim(f"{element.name}_b")
+            body_inner[key] = inner
+            nodes[0] = inner
+        if tuple(nodes) != element.nodes:
+            changed[key] = _with_nodes(element, tuple(nodes))
+    return changed, body_inner
+
+
+def _with_nodes(element: Element, nodes: tuple[str, ...]) -> Element:
+    return replace(element, nodes=nodes, raw=None)
+
+
+def _kept_couplings(
+    ids: list[str], matrix: np.ndarray, kmin: float
+) -> tuple[list[tuple[int, int, float]], bool]:
+    """Pairs to couple; small ones are dropped only if the kept matrix stays definite."""
+    k = coupling_coefficients(matrix)
+    pairs = [(i, j, float(k[i, j])) for i in range(len(ids)) for j in range(i + 1, len(ids))]
+    strong = [(i, j, kij) for i, j, kij in pairs if abs(kij) >= kmin]
+    if len(strong) == len([p for p in pairs if p[2] != 0.0]):
+        return strong, False
+    kept = np.diag(np.diag(matrix)).astype(float)
+    for i, j, _ in strong:
+        kept[i, j] = kept[j, i] = matrix[i, j]
+    try:
+        np.linalg.cholesky(kept)
+    except np.linalg.LinAlgError:
+        return [p for p in pairs if p[2] != 0.0], True
+    return strong, False
+
+
+def synthesize(
+    netlist: Netlist,
+    graph: ConductorGraph,
+    inductance: InductanceMatrix,
+    options: SynthesisOptions = SynthesisOptions(),
+    sidefile_name: str = "",
+) -> Augmented:
+    """Build the augmented netlist text and the map of where each reading lives.
+
+    Parameters
+    ----------
+    netlist : the parsed original netlist
+    graph : the conductor graph of the side-file
+    inductance : lumped self and mutual inductances of every conductor (and zero-area paths)
+    options : coupling mode, coupling threshold, analysis override
+    """
+    notes: list[str] = []
+    analysis = choose_analysis(netlist, graph, options.analysis)
+    for directive in netlist.statements:
+        if getattr(directive, "kind", None) == "control":
+            notes.append(
+                f"{directive.location}: .control block left out of the simulation; "
+                "the tool issues the analysis itself"
+            )
+
+    coils = {c.element.lower() for c in graph.conductors if c.kind == "coil"}
+    removed_k: list[str] = []
+    for element in netlist.elements:
+        if element.kind == "K" and any(f.lower() in coils for f in element.fields[:2]):
+            removed_k.append(element.key)
+            notes.append(
+                f"{element.location}: {element.name} couples a coil the side-file realises; "
+                "replaced by the computed couplings"
+            )
+
+    book = _NameBook(netlist.names)
+    node_of = _node_names(netlist, graph, book)
+    changed, body_inner = _rewired_elements(netlist, graph, node_of, book)
+
+    ids = list(inductance.ids)
+    index = {cid: i for i, cid in enumerate(ids)}
+    conductors = {c.id: c for c in graph.conductors}
+    carrying = [c for c in graph.conductors if c.kind in CURRENT_CARRYING]
+    probe_conductors = [c for c in graph.conductors if c.kind == "probe"]
+    henry = inductance.henry
+
+    lines: list[str] = [
+        "*",
+        f"* ---- added from side-file {sidefile_name or '(unnamed)'} ----",
+        f"* {len(carrying)} current-carrying conductors, {len(probe_conductors)} probe loops;",
+        "* ids in the comments are the conductor ids of 'augment extract'.",
+    ]
+    inductor_count = 0
+    inductor_of: dict[str, str] = {}
+    sense_of: dict[str, str] = {}
+
+    # series inductors of the current-carrying conductors, each with a 0 V sense source
+    for c in carrying:
+        i = index[c.id]
+        if c.kind == "coil":
+            element = netlist.element(c.element)
+            base = changed.get(element.key, element)
+            sense_node = book.claim(f"{element.name}_s")
+            sense = book.claim(f"VX_S_{element.name}")
+            nodes = (sense_node, *base.nodes[1:])
+            changed[element.key] = replace(
+                base, nodes=nodes, value=_value(henry[i, i]), fields=(_value(henry[i, i]),), raw=None
+            )
+            lines.append(f"{sense} {base.nodes[0]} {sense_node} 0 $ {c.id} current sense")
+            inductor_of[c.id] = element.name
+            sense_of[c.id] = sense
+            stated = netlist.value_of(element.name)
+            if stated and abs(henry[i, i] - stated) > 0.1 * stated:
+                notes.append(
+                    f"{element.location}: {element.name} is {stated:.4g} H in the netlist but its "
+                    f"[[coil]] geometry gives {henry[i, i]:.4g} H; the computed value is used"
+                )
+            inductor_count += 1
+            continue
+        name = book.claim(_inductor_name(c.id))
+        sense = book.claim("VX_S" + name[2:])
+        mid = book.claim(name + "_s")
+        if c.kind == "wire":
+            start, end = node_of[c.start], node_of[c.end]
+        elif c.kind == "body":
+            start, end = node_of[c.start], body_inner[c.element.lower()]
+        else:  # aggressor: an imposed current through its own inductor
+            aggressor = next(a for a in graph.aggressors if a.conductor == c.id)
+            start = book.claim(f"agg_{aggressor.name}")
+            end = "0"
+            lines.append(
+                f"{book.claim('IX_A_' + aggressor.name)} 0 {start} {aggressor.current} $ {c.id} imposed current"
+            )
+        lines.append(f"{sense} {start} {mid} 0 $ {c.id} current sense")
+        lines.append(f"{name} {mid} {end} {_value(henry[i, i])} $ {c.id} partial L, {c.length_m * 1e3:.4g} mm")
+        inductor_of[c.id] = name
+        sense_of[c.id] = sense
+        inductor_count += 1
+
+    # K couplings among current-carrying conductors (and probe loops when coupled fully)
+    coupled = [c.id for c in carrying]
+    full = options.coupling == "full"
+    probe_inductors: dict[str, str] = {}
+    for setup in graph.probes:
+        c = conductors[setup.conductor]
+        if math.isinf(setup.instrument.resistance) and setup.instrument.capacitance == 0:
+            continue  # an ideal instrument draws no current: its own inductance does nothing
+        name = book.claim(_inductor_name(c.id))
+        probe_inductors[setup.name] = name
+        if full:
+            coupled.append(c.id)
+    sub = np.array([[henry[index[a], index[b]] for b in coupled] for a in coupled], dtype=float)
+    coupling_count = 0
+    if len(coupled) > 1:
+        check_positive_definite(sub, coupled)
+        kept, forced = _kept_couplings(coupled, sub, options.kmin)
+        if forced:
+            notes.append(
+                f"couplings below |k| = {options.kmin:g} kept: dropping them would leave the "
+                "inductance matrix indefinite, which ngspice refuses"
+            )
+        if kept:
+            lines.append("* mutual couplings (coefficient of coupling from the lumped partial inductances)")
+        for n, (i, j, kij) in enumerate(kept, start=1):
+            a, b = coupled[i], coupled[j]
+            la = inductor_of.get(a) or probe_inductors[a.partition(":")[2]]
+            lb = inductor_of.get(b) or probe_inductors[b.partition(":")[2]]
+            lines.append(f"{book.claim(f'KX_{n}')} {la} {lb} {kij:.9g} $ {a} ~ {b}")
+            coupling_count += 1
+
+    # derivative sensors: node voltage = DERIVATIVE_HENRY * dI/dt of each current-carrying conductor
+    derivative_nodes: dict[str, str] = {}
+    if graph.probes and carrying:
+        lines.append(f"* dI/dt sensors: V(node) = {DERIVATIVE_HENRY:g} H * dI/dt, no load on the circuit")
+    for c in carrying if graph.probes else ():
+        node = book.claim(f"d_{inductor_of[c.id]}")
+        lines.append(f"{book.claim('FX_D_' + inductor_of[c.id])} 0 {node} {sense_of[c.id]} 1 $ {c.id}")
+        lines.append(f"{book.claim('LX_D_' + inductor_of[c.id])} {node} 0 {_value(DERIVATIVE_HENRY)} $ {c.id}")
+        derivative_nodes[c.id] = node
+
+    probes: list[ProbeNodes] = []
+    probe_mutuals: dict[str, dict[str, float]] = {}
+    for setup in graph.probes:
+        c = conductors[setup.conductor]
+        p = index[c.id]
+        plus, minus = node_of[setup.plus], node_of[setup.minus]
+        mutuals = {cc.id: float(henry[p, index[cc.id]]) for cc in carrying}
+        probe_mutuals[setup.name] = mutuals
+        local = inductance.reference_mutual[inductance.reference_ids.index(f"local:{setup.name}")]
+        local_mutuals = {cc.id: float(local[index[cc.id]]) for cc in carrying}
+        instrument = setup.instrument
+        lines.append(f"* probe {setup.name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
+
+        local_node = book.claim(f"r_{setup.name}_local")
+        lines.append(
+            f"{book.claim('BX_L_' + setup.name)} {local_node} 0 V = {_emf_expression(plus, minus, local_mutuals, derivative_nodes)}"
+            f" $ local:{setup.name} zero-area path"
+        )
+        probed_node = book.claim(f"r_{setup.name}_probed")
+        tip = book.claim(f"r_{setup.name}_tip") if instrument.bandwidth else probed_node
+        if setup.name not in probe_inductors:
+            # ideal instrument: open circuit sensed by a controlled source
+            lines.append(
+                f"{book.claim('BX_P_' + setup.name)} {tip} 0 V = {_emf_expression(plus, minus, mutuals, derivative_nodes)}"
+                f" $ {c.id} ideal instrument"
+            )
+        else:
+            a = book.claim(f"p_{setup.name}_a")
+            lines.append(f"{probe_inductors[setup.name]} {plus} {a} {_value(henry[p, p])} $ {c.id} loop self inductance")
+            if full:
+                inside = a  # the K lines carry the EMF
+            else:
+                inside = book.claim(f"p_{setup.name}_b")
+                emf = " + ".join(
+                    f"({_value(-m / DERIVATIVE_HENRY)})*v({derivative_nodes[cid]})"
+                    for cid, m in mutuals.items()
+                    if m != 0.0
+                ) or "0"
+                lines.append(f"{book.claim('BX_E_' + setup.name)} {inside} {a} V = {emf} $ {c.id} induced EMF, one way")
+            inductor_count += 1
+            lines.extend(_instrument_lines(setup.name, instrument, inside, minus, book, c.id))
+            lines.append(f"{book.claim('EX_T_' + setup.name)} {tip} 0 {inside} {minus} 1 $ {c.id} reading at the tip")
+        if instrument.bandwidth:
+            # single-pole limit of the instrument, after the tip
+            r_name, c_name = book.claim("RX_W_" + setup.name), book.claim("CX_W_" + setup.name)
+            cap = 1.0 / (2 * math.pi * 1e3 * instrument.bandwidth)
+            lines.append(f"{r_name} {tip} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
+            lines.append(f"{c_name} {probed_node} 0 {_value(cap)} $ {c.id}")
+        probes.append(
+            ProbeNodes(
+                name=setup.name,
+                plus_net=graph.junctions[setup.plus].net,
+                minus_net=graph.junctions[setup.minus].net,
+                probed_node=probed_node,
+                local_node=local_node,
+                instrument=instrument,
+                conductor=c.id,
+                lead_length_m=c.length_m,
+            )
+        )
+    lines.append(f"* ---- end of added lines: {inductor_count} inductors, {coupling_count} couplings ----")
+
+    augmented = netlist.replace(changed=changed, removed=removed_k)
+    return Augmented(
+        text=_simulation_text(augmented, analysis, lines),
+        original_text=_simulation_text(netlist, analysis, []),
+        analysis=analysis.split()[0].lstrip(".").lower(),
+        probes=tuple(probes),
+        derivative_nodes=derivative_nodes,
+        probe_mutuals=probe_mutuals,
+        inductor_names={
+            **inductor_of,
+            **{f"probe:{name}": inductor for name, inductor in probe_inductors.items()},
+        },
+        inductors=inductor_count,
+        couplings=coupling_count,
+        notes=tuple(notes),
+    )
+
+
+def _emf_expression(
+    plus: str, minus: str, mutuals: Mapping[str, float], derivative_nodes: Mapping[str, str]
+) -> str:
+    """``V(plus) - V(minus) - sum_j M_j dI_j/dt`` as a behavioural-source expression."""
+    terms = [f"v({plus})" if plus != "0" else "0", f"- v({minus})" if minus != "0" else ""]
+    terms += [
+        f"+ ({_value(-m / DERIVATIVE_HENRY)})*v({derivative_nodes[cid]})"
+        for cid, m in mutuals.items()
+        if m != 0.0 and cid in derivative_nodes
+    ]
+    return " ".join(t for t in terms if t)
+
+
+def _instrument_lines(name: str, instrument, tip: str, minus: str, book: _NameBook, cid: str) -> list[str]:
+    """Input model of the instrument between its tip node and the minus lead's end."""
+    lines = []
+    if math.isfinite(instrument.resistance):
+        lines.append(f"{book.claim('RX_I_' + name)} {tip} {minus} {_value(instrument.resistance)} $ {cid} input resistance")
+    if instrument.capacitance:
+        lines.append(f"{book.claim('CX_I_' + name)} {tip} {minus} {_value(instrument.capacitance)} $ {cid} input capacitance")
+    if instrument.differential and instrument.reference_resistance:
+        for side, node in (("P", tip), ("M", minus)):
+            if node != "0":
+                lines.append(
+                    f"{book.claim(f'RX_{side}_{name}')} {node} 0 {_value(instrument.reference_resistance)} "
+                    f"$ {cid} input to instrument reference"
+                )
+    return lines
