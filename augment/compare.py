@@ -74,20 +74,26 @@ def _base(vectors: Mapping[str, np.ndarray], analysis: str) -> np.ndarray:
 def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> float | None:
     """Frequency of the oscillation in ``error`` after the largest edge of ``ideal``.
 
-    The edge is the sample of steepest |d ideal/dt| (of the error itself when the ideal
-    waveform is flat). After it, the error is taken about its settled value (the mean of its
-    last tenth) and its crossings of that value are counted while each half-cycle's peak
-    stays above 5 % of the largest; fewer than three periods mean no ringing (None).
-    The frequency is the number of half-periods over the time they span, with crossing
-    instants interpolated linearly between samples.
+    The edge is where |d ideal/dt| is largest (the error's own steepest point when the ideal
+    waveform is flat); the window runs from the end of that edge to the start of the next
+    one. In it the error is taken about its settled value (the mean of the window's last
+    tenth) and its crossings of that value are counted while each half-cycle's peak stays
+    above 5 % of the largest (SPEC); fewer than three periods mean no ringing (None). The
+    frequency is the number of half-periods over the time they span, crossing instants
+    interpolated linearly between samples.
     """
     if len(base) < 8:
         return None
     slope = np.abs(np.gradient(ideal, base))
     if not np.any(slope > 0):
         slope = np.abs(np.gradient(error, base))
+    steep = slope > 0.1 * slope.max()
     start = int(np.argmax(slope))
-    t, x = base[start:], error[start:]
+    while start < len(base) - 1 and steep[start]:
+        start += 1
+    later = np.nonzero(steep[start:])[0]
+    stop = start + int(later[0]) if len(later) else len(base)
+    t, x = base[start:stop], error[start:stop]
     if len(x) < 8:
         return None
     x = x - x[-max(1, len(x) // 10) :].mean()
@@ -96,10 +102,8 @@ def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) ->
         return None
     sign = np.signbit(x)
     crossings = np.nonzero(sign[1:] != sign[:-1])[0]
-    if len(crossings) < 2 * RINGING_MIN_PERIODS + 1:
-        return None
     # keep crossings while the half-cycle before each is still above the threshold
-    kept = [crossings[0]]
+    kept = crossings[:1].tolist()
     for a, b in zip(crossings[:-1], crossings[1:]):
         if np.max(np.abs(x[a : b + 1])) < RINGING_THRESHOLD * peak:
             break

@@ -7,9 +7,13 @@ from pathlib import Path
 import click
 
 SCENARIOS = Path(__file__).parent / "scenarios"
-CASES = (
-    ("sensing_loop", "a pulsed coil threads a loop of 10 and 90 ohm; probed from either side and twisted"),
-    ("fast_edge", "a 1 ns edge into 1 k, probed with a 15 cm ground lead and with a spring ground"),
+CASES = (  # (report folder, netlist, side-file, what it shows)
+    ("sensing_loop", "sensing_loop.cir", "sensing_loop.toml",
+     "a pulsed coil threads a loop of 10 and 90 ohm; probed from either side and twisted"),
+    ("fast_edge_long", "fast_edge.cir", "fast_edge_long.toml",
+     "a 1 ns edge into 1 k, probed with a 15 cm ground lead"),
+    ("fast_edge_spring", "fast_edge.cir", "fast_edge_spring.toml",
+     "the same edge, probed with a spring ground"),
 )
 
 
@@ -22,9 +26,9 @@ def run_demo(out_dir: Path) -> list[dict]:
     from augment.report import format_probe_table
 
     documents = []
-    for name, what in CASES:
+    for name, netlist, sidefile, what in CASES:
         click.echo(f"== {name}: {what}", err=True)
-        document = run(SCENARIOS / f"{name}.cir", SCENARIOS / f"{name}.toml", out_dir / name, force=True)
+        document = run(SCENARIOS / netlist, SCENARIOS / sidefile, out_dir / name, force=True)
         for line in document["warnings"]:
             click.echo(f"warning: {line}", err=True)
         click.echo(format_probe_table(document))

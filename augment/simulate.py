@@ -1,8 +1,10 @@
 """Run netlist text in ngspice's shared library, inside a worker process that owns it.
 
 The shared library keeps global state and can abort the process that loaded it, so this
-module never loads it in the caller's process. A :class:`Simulator` starts one worker
-(multiprocessing ``spawn``, so no process that already holds ngspice is ever forked),
+module never loads it in the caller's process. A :class:`Simulator` starts one worker,
+a fresh interpreter (``python -m augment.simulate``) that talks to it over two pipes in
+pickled frames, so no process that already holds ngspice is ever forked and daemonic
+callers (Dask workers, ``multiprocessing.Pool`` workers) can own a simulator too. It
 reuses that worker's single ngspice instance across runs and clears the previous circuit
 and plots before each one. A crash or a hang kills only the worker; the next run starts a
 fresh one. PySpice is imported in the worker only, which keeps ``import augment.simulate``
@@ -11,20 +13,22 @@ cheap.
 ngspice 39 keeps one setting across circuits that ``remcirc`` and ``destroy all`` do not
 clear (measured here): once a circuit has used ``.options interp``, later circuits in the
 same process are interpolated too. The worker notices and the run is repeated in a fresh
-worker. Worker processes are started with ``spawn``, so a script that drives this module
-needs the usual ``if __name__ == "__main__":`` guard.
+worker.
 """
 
 from __future__ import annotations
 
-import multiprocessing
 import os
 import re
+import subprocess
+import sys
 import tempfile
 import time
 import types
 from collections.abc import Mapping
 from dataclasses import dataclass
+from multiprocessing.connection import Connection
+from pathlib import Path
 
 import numpy as np
 
@@ -106,9 +110,9 @@ class Simulator:
 
     def __init__(self, timeout_s: float = 300.0):
         self.timeout_s = timeout_s
-        self._context = multiprocessing.get_context("spawn")
         self._process = None
-        self._connection = None
+        self._requests = None
+        self._replies = None
         self._log_path = None
 
     def __enter__(self) -> Simulator:
@@ -164,12 +168,12 @@ class Simulator:
 
     def close(self) -> None:
         """Stop the worker; a later :meth:`run` starts a new one."""
-        if self._process is not None and self._process.is_alive():
+        if self._process is not None and self._process.poll() is None:
             try:
-                self._connection.send(("quit",))
-            except OSError:
+                self._requests.send(("quit",))
+                self._process.wait(_QUIT_TIMEOUT_S)
+            except (OSError, subprocess.TimeoutExpired):
                 pass
-            self._process.join(_QUIT_TIMEOUT_S)
         self._stop()
 
     def _simulate_library_abort(self, signum: int, name: str = "<netlist>") -> None:
@@ -181,12 +185,12 @@ class Simulator:
         self._request(("raise_signal", signum), name)
 
     def _request(self, message: tuple, name: str) -> tuple:
-        if self._process is None or not self._process.is_alive():
+        if self._process is None or self._process.poll() is not None:
             self._start()
         try:
-            self._connection.send(message)
-            if self._connection.poll(self.timeout_s):
-                return self._connection.recv()
+            self._requests.send(message)
+            if self._replies.poll(self.timeout_s):
+                return self._replies.recv()
         except (EOFError, OSError):
             pass
         else:
@@ -200,30 +204,34 @@ class Simulator:
     def _start(self) -> None:
         self._stop()
         log_fd, self._log_path = tempfile.mkstemp(prefix="augment-ngspice-", suffix=".log")
-        os.close(log_fd)
-        self._connection, child_connection = self._context.Pipe(duplex=True)
-        process = self._context.Process(
-            target=_worker_main,
-            args=(child_connection, self._log_path),
-            name="augment-ngspice",
-            daemon=True,
-        )
+        from_parent, to_worker = os.pipe()
+        from_worker, to_parent = os.pipe()
+        # The worker must find this package even when it is not installed.
+        package_root = str(Path(__file__).resolve().parent.parent)
+        python_path = os.pathsep.join(filter(None, [package_root, os.environ.get("PYTHONPATH")]))
         try:
-            process.start()
-        except (AssertionError, RuntimeError, OSError) as error:
-            # multiprocessing refuses children of daemonic processes (multiprocessing.Pool
-            # workers, Dask workers with distributed.worker.daemon left on).
-            child_connection.close()
+            self._process = subprocess.Popen(
+                [sys.executable, "-m", "augment.simulate", str(from_parent), str(to_parent)],
+                stdin=subprocess.DEVNULL,
+                stdout=log_fd,
+                stderr=log_fd,
+                pass_fds=(from_parent, to_parent),
+                env={**os.environ, "PYTHONPATH": python_path},
+                close_fds=True,
+            )
+        except OSError as error:
+            for fd in (to_worker, from_worker):
+                os.close(fd)
             self._stop()
-            raise SimulatorError(
-                f"cannot start the ngspice worker process: {error}; run simulations from a "
-                "non-daemonic process (e.g. concurrent.futures.ProcessPoolExecutor)"
-            ) from None
-        self._process = process
-        child_connection.close()
+            raise SimulatorError(f"cannot start the ngspice worker process: {error}") from None
+        finally:
+            for fd in (log_fd, from_parent, to_parent):
+                os.close(fd)
+        self._requests = Connection(to_worker, readable=False)
+        self._replies = Connection(from_worker, writable=False)
         try:
-            ready = self._connection.poll(_STARTUP_TIMEOUT_S)
-            reply = self._connection.recv() if ready else None
+            ready = self._replies.poll(_STARTUP_TIMEOUT_S)
+            reply = self._replies.recv() if ready else None
         except (EOFError, OSError):
             raise SimulatorError(self._death_message("(worker start-up)")) from None
         if reply is None:
@@ -240,21 +248,23 @@ class Simulator:
 
     def _stop(self) -> None:
         if self._process is not None:
-            if self._process.is_alive():
+            if self._process.poll() is None:
                 self._process.kill()
-            self._process.join()
-            self._process.close()
+            self._process.wait()
             self._process = None
-        if self._connection is not None:
-            self._connection.close()
-            self._connection = None
+        for connection in (self._requests, self._replies):
+            if connection is not None:
+                connection.close()
+        self._requests = self._replies = None
         if self._log_path is not None:
             os.unlink(self._log_path)
             self._log_path = None
 
     def _death_message(self, name: str) -> str:
-        self._process.join(_QUIT_TIMEOUT_S)
-        code = self._process.exitcode
+        try:
+            code = self._process.wait(_QUIT_TIMEOUT_S)
+        except subprocess.TimeoutExpired:
+            code = None
         with open(self._log_path, encoding="utf-8", errors="replace") as log:
             tail = [line.strip() for line in log if line.strip()][-3:]
         self._stop()
@@ -418,22 +428,25 @@ class _Worker:
         return ("ok", plot_name, vectors, elapsed_s, messages)
 
 
-def _worker_main(connection, log_path: str) -> None:
-    """Serve requests from the parent until told to quit (runs in the worker process)."""
-    # ngspice and PySpice write straight to file descriptors 1 and 2; keep that off the
-    # user's terminal but on disk, so a crash report can quote it.
-    log_fd = os.open(log_path, os.O_WRONLY | os.O_APPEND)
-    os.dup2(log_fd, 1)
-    os.dup2(log_fd, 2)
-    os.close(log_fd)
+def _worker_main(requests: Connection, replies: Connection) -> None:
+    """Serve requests from the parent until told to quit (runs in the worker process).
+
+    The parent has pointed file descriptors 1 and 2 at a log file: ngspice and PySpice
+    write straight to them, which keeps that off the user's terminal but on disk, so a
+    crash report can quote it. Requests and replies travel on their own pipes.
+    """
     try:
         worker = _Worker()
     except Exception as error:  # noqa: BLE001 - any start-up failure is reported, not raised
-        connection.send(("fail", f"{type(error).__name__}: {error}", [], False))
+        replies.send(("fail", f"{type(error).__name__}: {error}", [], False))
         os._exit(1)
-    connection.send(("ready",))
+    replies.send(("ready",))
     while True:
-        request = connection.recv()
+        try:
+            request = requests.recv()
+        except EOFError:
+            # The parent went away without saying quit.
+            break
         if request[0] == "quit":
             break
         if request[0] == "raise_signal":
@@ -443,7 +456,11 @@ def _worker_main(connection, log_path: str) -> None:
             reply = worker.run(request[1])
         except Exception as error:  # noqa: BLE001 - reported to the parent as a failure
             reply = ("fail", f"{type(error).__name__}: {error}", [], False)
-        connection.send(reply)
-    connection.close()
+        replies.send(reply)
+    replies.close()
     # Skip interpreter teardown: unloading ngspice at exit gains nothing and can hang.
     os._exit(0)
+
+
+if __name__ == "__main__":
+    _worker_main(Connection(int(sys.argv[1]), writable=False), Connection(int(sys.argv[2]), readable=False))

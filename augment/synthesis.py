@@ -117,9 +117,13 @@ def choose_analysis(netlist: Netlist, graph: ConductorGraph, override: str | Non
 
 
 def _simulation_text(netlist: Netlist, analysis: str, added: list[str]) -> str:
-    tail = [*added, ".options interp", ".save all", analysis]
-    rewritten = netlist.replace(added=tail)
-    return write_netlist(rewritten, keep_control=False, keep_analyses=False)
+    """The netlist as ngspice gets it: no .control block, our analysis on a common grid."""
+    text = write_netlist(netlist.replace(added=added), keep_control=False, keep_analyses=False)
+    lines = text.rstrip("\n").split("\n")
+    end = next((i for i in range(len(lines) - 1, 0, -1) if lines[i].strip().lower() == ".end"), len(lines))
+    # .options interp puts both runs on the same TSTEP grid, so readings compare sample by sample
+    lines[end:end] = [".options interp", ".save all", analysis]
+    return "\n".join(lines) + "\n"
 
 
 def _node_names(netlist: Netlist, graph: ConductorGraph, book: _NameBook) -> dict[str, str]:

@@ -1,0 +1,336 @@
+"""Pictures and tables for the user; the only module that imports matplotlib or pandas.
+
+Both are imported inside the functions that use them so that start-up stays quick.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import tempfile
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from augment.conductors import ConductorGraph
+from augment.units import engineering
+
+# Colours by kind; nets take colours from a qualitative cycle.
+_BODY_COLOUR = "#555555"
+_COIL_COLOUR = "#b87333"
+_AGGRESSOR_COLOUR = "#d62728"
+_PLUS_COLOUR = "#e377c2"
+_MINUS_COLOUR = "#17becf"
+_NET_COLOURS = ("#1f77b4", "#2ca02c", "#9467bd", "#8c564b", "#bcbd22", "#ff7f0e", "#7f7f7f", "#aec7e8")
+_MM = 1e3
+
+
+def draw_geometry(graph: ConductorGraph, netlist: Any, out_path: str | Path, *,
+                  size_px: tuple[int, int] = (1200, 900), dpi: int = 100) -> Path:
+    """Draw the side-file's geometry in 3-D, equal axis scale, coordinates in millimetres.
+
+    Wires are coloured by net, element bodies grey, coils copper, aggressors red and dashed,
+    probe plus leads magenta and minus leads cyan, the instrument's closing segment dotted.
+    Every placed terminal is marked and labelled ``ELEMENT.TERMINAL``; a legend names each
+    colour. The PNG is written to a temporary name beside ``out_path`` and moved into place.
+
+    Parameters
+    ----------
+    graph : ConductorGraph
+        The conductor graph to draw.
+    netlist : augment.netlist.Netlist
+        Its netlist, for the title.
+    out_path : str or Path
+        Where the PNG goes.
+    size_px : (int, int)
+        Width and height of the picture in pixels.
+    dpi : int
+        Resolution used to turn ``size_px`` into a figure size.
+
+    Returns
+    -------
+    Path
+        ``out_path``.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
+
+    out_path = Path(out_path)
+    figure = Figure(figsize=(size_px[0] / dpi, size_px[1] / dpi), dpi=dpi)
+    FigureCanvasAgg(figure)
+    axes = figure.add_subplot(projection="3d")
+    handles: dict[str, Line2D] = {}
+
+    def draw(points: np.ndarray, label: str, **style: Any) -> None:
+        mm = np.asarray(points) * _MM
+        axes.plot(mm[:, 0], mm[:, 1], mm[:, 2], **style)
+        handles.setdefault(label, Line2D([], [], **style))
+
+    nets = sorted({c.net for c in graph.conductors if c.net is not None})
+    net_colour = {net: _NET_COLOURS[k % len(_NET_COLOURS)] for k, net in enumerate(nets)}
+    probe_setups = {setup.conductor: setup for setup in graph.probes}
+    for conductor in graph.conductors:
+        if conductor.kind == "wire":
+            draw(conductor.points, f"net {conductor.net}", color=net_colour[conductor.net], linewidth=2.0)
+        elif conductor.kind == "body":
+            draw(conductor.points, "element body", color=_BODY_COLOUR, linewidth=5.0)
+        elif conductor.kind == "coil":
+            draw(conductor.points, "coil", color=_COIL_COLOUR, linewidth=1.2)
+        elif conductor.kind == "aggressor":
+            draw(conductor.points, "aggressor", color=_AGGRESSOR_COLOUR, linewidth=1.5, linestyle="--")
+        elif conductor.kind == "probe":
+            setup = probe_setups[conductor.id]
+            turn = setup.plus_lead_end
+            closing = setup.closing_segment
+            draw(conductor.points[:turn + 1], "probe plus lead", color=_PLUS_COLOUR, linewidth=1.5)
+            draw(conductor.points[turn + (closing is not None):], "probe minus lead", color=_MINUS_COLOUR,
+                 linewidth=1.5)
+            if closing is not None:
+                draw(conductor.points[closing:closing + 2], "instrument", color="black", linewidth=1.0,
+                     linestyle=":")
+            axes.text(*(conductor.points[turn] * _MM), f" {conductor.id}", fontsize=7, color="black")
+
+    labels: dict[str, list[str]] = {}
+    for (element, terminal), junction_id in graph.terminals.items():
+        if (element, terminal) in graph.placed:
+            labels.setdefault(junction_id, []).append(f"{element}.{terminal}")
+    for junction_id, names in labels.items():
+        x, y, z = np.asarray(graph.junctions[junction_id].position) * _MM
+        axes.scatter([x], [y], [z], color="black", s=12, depthshade=False)
+        axes.text(x, y, z, " " + ", ".join(names), fontsize=7)
+    if labels:
+        handles.setdefault("terminal", Line2D([], [], color="black", marker="o", linestyle="none", markersize=4))
+
+    _equal_scale(axes, graph)
+    axes.set_xlabel("x (mm)")
+    axes.set_ylabel("y (mm)")
+    axes.set_zlabel("z (mm)")
+    title = Path(str(getattr(netlist, "path", "") or "")).name or "geometry"
+    axes.set_title(f"{title}: conductors and probes")
+    if handles:
+        axes.legend(list(handles.values()), list(handles.keys()), loc="upper left", fontsize=8)
+    return _save(figure, out_path)
+
+
+def _equal_scale(axes: Any, graph: ConductorGraph) -> None:
+    """Same scale on all three axes: a cube around everything drawn."""
+    clouds = [c.points for c in graph.conductors] + [np.array([j.position]) for j in graph.junctions.values()]
+    if clouds:
+        points = np.vstack(clouds) * _MM
+        low, high = points.min(axis=0), points.max(axis=0)
+    else:
+        low = high = np.zeros(3)
+    centre = (low + high) / 2.0
+    half = max(float(np.max(high - low)) / 2.0, 1.0) * 1.05
+    axes.set_xlim(centre[0] - half, centre[0] + half)
+    axes.set_ylim(centre[1] - half, centre[1] + half)
+    axes.set_zlim(centre[2] - half, centre[2] + half)
+    axes.set_box_aspect((1.0, 1.0, 1.0))
+
+
+def _save(figure: Any, out_path: Path) -> Path:
+    """Write the PNG under a temporary name in the target folder, then move it into place."""
+    out_path.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(prefix=f".{out_path.name}.", suffix=".png", dir=out_path.parent)
+    os.close(handle)
+    try:
+        figure.savefig(temporary, format="png")
+        os.replace(temporary, out_path)
+    finally:
+        if os.path.exists(temporary):
+            os.remove(temporary)
+    return out_path
+
+
+def _atomic_folder(out_dir: Path):
+    """A fresh temporary folder beside ``out_dir``; ``_commit_folder`` moves it into place."""
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    return Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+
+
+def _commit_folder(tmp: Path, out_dir: Path) -> None:
+    old = None
+    if out_dir.exists():
+        old = out_dir.with_name(f".{out_dir.name}.old-{os.getpid()}")
+        os.replace(out_dir, old)
+    os.replace(tmp, out_dir)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def readings_frame(comparison):
+    """All waveforms of a comparison as one table: time (or frequency) plus PROBE:kind columns."""
+    import numpy as np
+    import pandas as pd
+
+    columns = {}
+    if comparison.analysis == "ac":
+        columns["frequency"] = comparison.base
+        for r in comparison.readings:
+            for kind in ("ideal", "local", "probed"):
+                values = getattr(r, kind)
+                columns[f"{r.probe.name}:{kind}:mag"] = np.abs(values)
+                columns[f"{r.probe.name}:{kind}:phase"] = np.degrees(np.angle(values))
+    else:
+        columns["time"] = comparison.base
+        for r in comparison.readings:
+            for kind in ("ideal", "local", "probed"):
+                columns[f"{r.probe.name}:{kind}"] = np.real(getattr(r, kind))
+    return pd.DataFrame(columns)
+
+
+SUMMARY_COLUMNS = (
+    "name", "instrument", "ideal_min", "ideal_max", "local_min", "local_max", "probed_min",
+    "probed_max", "max_abs_error", "rms_error", "ringing_hz", "top_source", "top_peak_v",
+)
+
+
+def summary_rows(document: dict) -> list[dict]:
+    """One flat row per probe of a result document (for summary.csv and terminal tables)."""
+    rows = []
+    for probe in document["probes"]:
+        top = probe["contributions"][0] if probe["contributions"] else {"source": "", "peak_v": 0.0}
+        row = {key: probe.get(key) for key in SUMMARY_COLUMNS if key in probe}
+        row["instrument"] = probe["instrument"]["name"]
+        row["top_source"], row["top_peak_v"] = top["source"], top["peak_v"]
+        rows.append({key: row.get(key) for key in SUMMARY_COLUMNS})
+    return rows
+
+
+def format_table(rows: list[dict], columns: list[str]) -> str:
+    """A plain fixed-width table with engineering-notation numbers."""
+    def cell(value, key):
+        if value is None:
+            return "-"
+        if isinstance(value, float):
+            unit = "Hz" if key.endswith("_hz") else ("H" if key.endswith("_h") else "V")
+            return engineering(value, unit)
+        return str(value)
+
+    body = [[cell(row.get(c), c) for c in columns] for row in rows]
+    widths = [max(len(c), *(len(line[i]) for line in body)) if body else len(c) for i, c in enumerate(columns)]
+    lines = ["  ".join(c.ljust(w) for c, w in zip(columns, widths))]
+    lines += ["  ".join(v.ljust(w) for v, w in zip(line, widths)) for line in body]
+    return "\n".join(lines)
+
+
+def plot_reading(comparison, reading, path: Path) -> None:
+    """Ideal, local and probed overlaid, the error below; engineering units on the axes."""
+    import numpy as np
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import EngFormatter
+
+    fig = Figure(figsize=(9, 6.5), constrained_layout=True)
+    FigureCanvasAgg(fig)
+    top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=(3, 1.3))
+    ac = comparison.analysis == "ac"
+    base = comparison.base
+    show = (lambda v: np.abs(v)) if ac else np.real
+    styles = {"ideal": ("black", "-", 2.0), "local": ("tab:blue", "--", 1.4), "probed": ("tab:red", "-", 1.1)}
+    for kind, (color, style, width) in styles.items():
+        top.plot(base, show(getattr(reading, kind)), color=color, linestyle=style, linewidth=width, label=kind)
+    bottom.plot(base, show(reading.error), color="tab:purple", linewidth=1.0)
+    if ac:
+        for axis in (top, bottom):
+            axis.set_xscale("log")
+    for axis in (top, bottom):
+        axis.xaxis.set_major_formatter(EngFormatter(unit="Hz" if ac else "s"))
+        axis.yaxis.set_major_formatter(EngFormatter(unit="V"))
+        axis.grid(True, alpha=0.3)
+    instrument = reading.probe.instrument.name
+    ringing = f", error rings at {engineering(reading.ringing_hz, 'Hz')}" if reading.ringing_hz else ""
+    top.set_title(f"probe {reading.probe.name} ({instrument}){ringing}")
+    top.set_ylabel("|V|" if ac else "V(plus) - V(minus)")
+    top.legend(loc="best")
+    bottom.set_ylabel("probed - ideal")
+    bottom.set_xlabel("frequency" if ac else "time")
+    fig.savefig(path, dpi=110)
+
+
+def write_report(out_dir: Path, built, comparison, document: dict, *, force: bool = False) -> Path:
+    """Write the report folder: augmented netlist, readings.csv, summary.csv, result.json, PNGs.
+
+    Everything is written into a temporary folder beside ``out_dir`` and moved into place at
+    the end, so an interrupted run never leaves a half-written report.
+    """
+    import pandas as pd
+
+    tmp = _atomic_folder(out_dir)
+    try:
+        stem = Path(built.netlist.path).stem
+        (tmp / f"{stem}.augmented.cir").write_text(built.augmented.text)
+        (tmp / f"{stem}.original.cir").write_text(built.augmented.original_text)
+        readings_frame(comparison).to_csv(tmp / "readings.csv", index=False)
+        pd.DataFrame(summary_rows(document), columns=list(SUMMARY_COLUMNS)).to_csv(tmp / "summary.csv", index=False)
+        (tmp / "result.json").write_text(json.dumps(document, indent=2) + "\n")
+        for reading in comparison.readings:
+            plot_reading(comparison, reading, tmp / f"{reading.probe.name}.png")
+        (tmp / "CAUTION.txt").write_text(document["caution"] + "\n")
+        _commit_folder(tmp, out_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return out_dir
+
+
+def write_text_atomic(path: Path, text: str) -> None:
+    """Write a file under a temporary name and move it into place."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w") as handle:
+            handle.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+PROBE_TABLE_COLUMNS = ["name", "instrument", "ideal_max", "probed_min", "probed_max", "max_abs_error", "rms_error", "ringing_hz", "top_source"]
+
+
+def format_probe_table(document: dict) -> str:
+    """The compact terminal table of `augment run`: one row per probe."""
+    return format_table(summary_rows(document), PROBE_TABLE_COLUMNS)
+
+
+def extraction_document(built) -> dict:
+    """The `augment extract --json` document: conductors and every coupling with |k| > 1e-9."""
+    import numpy as np
+
+    from augment.inductance import coupling_coefficients
+
+    m = built.inductance
+    names = built.augmented.inductor_names
+    conductors = [
+        {"id": cid, "inductor": names.get(cid), "henry": float(m.henry[i, i]), "segments": m.segments[i],
+         "length_m": m.lengths_m[i]}
+        for i, cid in enumerate(m.ids)
+    ]
+    k = coupling_coefficients(m.henry) if len(m.ids) else np.zeros((0, 0))
+    couplings = [
+        {"a": m.ids[i], "b": m.ids[j], "mutual_h": float(m.henry[i, j]), "k": float(k[i, j])}
+        for i in range(len(m.ids)) for j in range(i + 1, len(m.ids)) if abs(k[i, j]) > 1e-9
+    ]
+    return {"netlist": str(built.netlist.path), "conductors": conductors, "couplings": couplings}
+
+
+def format_extraction(document: dict) -> str:
+    """Readable extraction table: each conductor with its strongest couplings."""
+    strongest: dict[str, list] = {}
+    for c in document["couplings"]:
+        strongest.setdefault(c["a"], []).append((c["b"], c["k"]))
+        strongest.setdefault(c["b"], []).append((c["a"], c["k"]))
+    rows = []
+    for c in document["conductors"]:
+        top = sorted(strongest.get(c["id"], []), key=lambda p: -abs(p[1]))[:2]
+        rows.append({
+            "conductor": c["id"], "inductor": c["inductor"] or "-", "length": engineering(c["length_m"], "m"),
+            "segments": str(c["segments"]), "self": engineering(c["henry"], "H"),
+            "strongest couplings": ", ".join(f"{other} k={k:+.3g}" for other, k in top) or "-",
+        })
+    return format_table(rows, ["conductor", "inductor", "length", "segments", "self", "strongest couplings"])

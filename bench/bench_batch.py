@@ -1,0 +1,113 @@
+"""Benchmark of `augment batch` with one and with two local workers.
+
+Writes a plan of ``cases`` small cases (a pulse into a resistive divider of our own, a 10x
+probe across the load, each case with its own resistor values), runs it with ``jobs=1``
+and ``jobs=2`` and reports the median, min and max wall time of ``repeats`` runs each,
+start-up of the worker processes included, and the ratio of the two medians. On a
+two-core machine the target is a ratio of at most 0.6.
+
+Run: ``.venv/bin/python bench/bench_batch.py [--cases 16] [--repeats 5]``
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from augment.batch import run_plan  # noqa: E402
+
+TARGET_RATIO = 0.6
+
+_NETLIST = """divider {index}
+V1 in 0 PULSE(0 1 1n 1n 1n 20n 40n)
+R1 in out {r1}
+R2 out 0 {r2}
+.tran 0.1n 30n
+.end
+"""
+
+_SIDEFILE = """units = "mm"
+wire_radius = 0.25
+
+[terminals]
+R2 = [[0, 0, 0], [0, 10, 0]]
+
+[[probe]]
+name = "across_R2"
+plus = "R2.1"
+minus = "R2.2"
+instrument = "passive-10x"
+plus_lead = ["R2.1", [-5, 0, 5], [-5, 50, 5]]
+minus_lead = ["R2.2", [-6, 10, 5], [-6, 50, 5]]
+"""
+
+
+def write_plan(folder: Path, cases: int) -> Path:
+    """A plan of ``cases`` divider cases in ``folder``; returns the plan's path."""
+    (folder / "across.toml").write_text(_SIDEFILE)
+    entries = []
+    for index in range(cases):
+        (folder / f"divider{index}.cir").write_text(_NETLIST.format(index=index, r1=50 + index, r2=50 + 2 * index))
+        entries.append(f'[[case]]\nname = "d{index}"\nnetlist = "divider{index}.cir"\nsidefile = "across.toml"\n')
+    plan = folder / "plan.toml"
+    plan.write_text("\n".join(entries))
+    return plan
+
+
+def _time_once(plan: Path, out: Path, jobs: int) -> float:
+    quiet = io.StringIO()
+    start = time.perf_counter()
+    with contextlib.redirect_stdout(quiet), contextlib.redirect_stderr(quiet):
+        code = run_plan(plan, out, jobs=jobs, scheduler=None, junit=None, force=False)
+    elapsed = time.perf_counter() - start
+    if code != 0:
+        raise RuntimeError(f"the benchmark plan failed (exit {code}):\n{quiet.getvalue()}")
+    return elapsed
+
+
+def run(cases: int = 16, repeats: int = 5) -> list[dict]:
+    """Time the plan with 1 and 2 workers; one row per worker count (seconds), with the ratio."""
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="augment-bench-batch-") as scratch:
+        folder = Path(scratch)
+        plan = write_plan(folder, cases)
+        times: dict[int, list[float]] = {1: [], 2: []}
+        for repeat in range(repeats):
+            # Alternate the order so that drift of the machine hits both alike.
+            for jobs in ((1, 2) if repeat % 2 == 0 else (2, 1)):
+                times[jobs].append(_time_once(plan, folder / f"out-{jobs}-{repeat}", jobs))
+        for jobs, measured in times.items():
+            rows.append({"jobs": jobs, "cases": cases, "median_s": statistics.median(measured),
+                         "min_s": min(measured), "max_s": max(measured), "repeats": repeats})
+    ratio = rows[1]["median_s"] / rows[0]["median_s"]
+    for row in rows:
+        row["ratio_to_one_job"] = row["median_s"] / rows[0]["median_s"]
+    rows[1]["target_met"] = ratio <= TARGET_RATIO
+    return rows
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--cases", type=int, default=16)
+    parser.add_argument("--repeats", type=int, default=5)
+    args = parser.parse_args(argv)
+    rows = run(args.cases, args.repeats)
+    print(f"{'jobs':>4} {'cases':>5} {'median s':>9} {'min s':>8} {'max s':>8} {'ratio':>6}")
+    for row in rows:
+        print(f"{row['jobs']:>4} {row['cases']:>5} {row['median_s']:>9.3f} {row['min_s']:>8.3f} "
+              f"{row['max_s']:>8.3f} {row['ratio_to_one_job']:>6.2f}")
+    met = rows[1]["target_met"]
+    print(f"jobs 2 / jobs 1 <= {TARGET_RATIO}: {'met' if met else 'MISSED'}")
+    return 0 if met else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,166 @@
+"""Hypothesis strategies shared by the test files, one section per stage."""
+
+from __future__ import annotations
+
+from hypothesis import strategies as st
+
+# ---------------------------------------------------------------------------------------
+# Netlists (augment/netlist.py): small flat netlists written the many ways SPICE allows.
+
+_SCALES = ["", "f", "p", "n", "u", "m", "k", "meg", "g", "t", "mil", "MEG", "K", "U", "N", "P"]
+_UNITS = ["", "", "ohm", "F", "H", "s"]
+_NODES = ["0", "gnd", "GND", "in", "out", "n1", "N2", "mid", "a_b", "x.y"]
+
+
+@st.composite
+def spice_numbers(draw) -> str:
+    """A positive SPICE number: mantissa, optional exponent, scale factor and unit letters."""
+    mantissa = draw(st.sampled_from(["1", "4.7", "10", "0.5", ".25", "220", "3."]))
+    exponent = draw(st.sampled_from(["", "", "e3", "E-2", "e+1"]))
+    scale = draw(st.sampled_from(_SCALES))
+    unit = draw(st.sampled_from(_UNITS)) if scale else ""
+    return f"{mantissa}{exponent}{scale}{unit}"
+
+
+@st.composite
+def _element_line(draw, index: int) -> str:
+    kind = draw(st.sampled_from("RCLVI"))
+    name = draw(st.sampled_from([kind, kind.lower()])) + str(index)
+    a, b = draw(st.lists(st.sampled_from(_NODES), min_size=2, max_size=2))
+    if kind in "VI":
+        tail = draw(st.sampled_from([
+            f"DC {draw(spice_numbers())}",
+            f"PULSE(0 {draw(spice_numbers())} 0 1n 1n 5n 10n)",
+            f"SIN(0 1 {draw(spice_numbers())})",
+            f"DC 0 AC 1",
+        ]))
+    else:
+        tail = draw(st.sampled_from([draw(spice_numbers()), "{rval}", "'rval*2'"]))
+    sep = draw(st.sampled_from([" ", "  ", "\t"]))
+    line = sep.join([name, a, b, tail])
+    if draw(st.booleans()):
+        # Break the line before its value, as a + continuation.
+        head, _, last = line.rpartition(sep)
+        line = f"{head}\n+ {last}"
+    comment = draw(st.sampled_from(["", "", " ; note", " $ note"]))
+    return line + comment
+
+
+@st.composite
+def netlist_texts(draw) -> str:
+    """Text of a flat netlist: title, .param, elements, comments, an analysis and .end."""
+    count = draw(st.integers(min_value=1, max_value=12))
+    lines = [draw(st.sampled_from(["test circuit", "* starts like a comment", "Title: RC"]))]
+    lines.append(".param rval=1k")
+    for index in range(1, count + 1):
+        if draw(st.integers(0, 4)) == 0:
+            lines.append(draw(st.sampled_from(["* comment", "", "   ", "*"])))
+        lines.append(draw(_element_line(index)))
+    lines.append(draw(st.sampled_from([".tran 1n 10n", ".op", ".TRAN 0.1n 5n", ".ac dec 5 1k 1meg"])))
+    lines.append(draw(st.sampled_from([".end", ".END"])))
+    return "\n".join(lines) + "\n"
+
+
+# ---------------------------------------------------------------------------------------
+# Segments (augment/inductance.py): pairs of straight filaments in every relative position.
+
+import numpy as _np  # noqa: E402
+
+
+def _unit(v):
+    return v / _np.linalg.norm(v)
+
+
+_coordinate = st.floats(-1.0, 1.0, allow_nan=False, allow_infinity=False)
+_point = st.tuples(_coordinate, _coordinate, _coordinate).map(_np.array)
+_length = st.floats(0.2, 1.5)
+
+
+@st.composite
+def segment_pairs(draw):
+    """Two filaments (a0, a1, b0, b1), kept at least 0.02 apart so Neumann's integral is smooth.
+
+    Kinds: general skew, sharing an end point, near-parallel, near-collinear (tilts
+    1e-4 to 1e-2 rad; see the Notes of mutual_filaments), exactly parallel with arbitrary offsets, perpendicular.
+    """
+    kind = draw(st.sampled_from(["skew", "shared", "near_parallel", "near_collinear", "parallel", "perpendicular"]))
+    a0 = draw(_point)
+    u = _unit(draw(_point.filter(lambda p: _np.linalg.norm(p) > 0.1)))
+    other = draw(_point.filter(lambda p: _np.linalg.norm(_np.cross(p, u)) > 0.1))
+    side = _unit(_np.cross(u, other))
+    up = _np.cross(u, side)
+    la, lb = draw(_length), draw(_length)
+    a1 = a0 + la * u
+    tilt = 10.0 ** draw(st.floats(-4.0, -2.0))
+    angle = draw(st.floats(0.0, 2 * _np.pi))
+    wobble = _np.cos(angle) * side + _np.sin(angle) * up
+    shift = draw(st.floats(-1.0, 1.0)) * u
+    if kind == "skew":
+        b0 = draw(_point)
+        v = _unit(draw(_point.filter(lambda p: _np.linalg.norm(_np.cross(p, u)) > 0.05)))
+    elif kind == "shared":
+        b0 = draw(st.sampled_from([a0, a1]))
+        v = _unit(draw(_point.filter(lambda p: _np.linalg.norm(_np.cross(p, u)) > 0.05)))
+    elif kind == "near_parallel":
+        b0 = a0 + shift + draw(st.floats(0.02, 0.5)) * side
+        v = _unit(u + tilt * wobble)
+    elif kind == "near_collinear":
+        b0 = a1 + draw(st.floats(0.02, 0.5)) * u
+        v = _unit(u + tilt * wobble)
+    elif kind == "parallel":
+        b0 = a0 + shift + draw(st.floats(0.02, 0.5)) * side
+        v = u
+    else:
+        b0 = a0 + shift + draw(st.floats(0.02, 0.5)) * side
+        v = up
+    v = v * draw(st.sampled_from([1.0, -1.0]))
+    b1 = b0 + lb * v
+    if draw(st.booleans()):
+        a0, a1 = a1, a0
+    return a0, a1, b0, b1
+
+
+@st.composite
+def segment_clouds(draw, max_segments: int = 12):
+    """A few separate straight segments (end points in a 10 cm box) with radii and owners."""
+    n = draw(st.integers(2, max_segments))
+    starts = _np.array([draw(_point) for _ in range(n)]) * 0.05
+    ends = starts + _np.array([draw(_point.filter(lambda p: _np.linalg.norm(p) > 0.2)) for _ in range(n)]) * 0.02
+    radii = _np.full(n, 1e-4)
+    n_conductors = draw(st.integers(1, min(n, 4)))
+    owner = _np.array([draw(st.integers(0, n_conductors - 1)) for _ in range(n)])
+    owner[:n_conductors] = _np.arange(n_conductors)
+    return starts, ends, radii, owner, n_conductors
+
+
+# ---------------------------------------------------------------------------------------
+# Geometry side-files and the conductor graph (augment/sidefile.py, augment/conductors.py).
+
+from augment.sidefile import TwistedPair as _TwistedPair  # noqa: E402
+
+
+@st.composite
+def twisted_pair_routes(draw):
+    """Plus and minus points (metres) and a twisted pair whose route bends gently.
+
+    The route starts midway between the points, as SPEC requires, and turns by at most 60
+    degrees at each corner; spacing and pitch are of bench size (0.5-3 mm, 4-20 mm).
+    """
+    plus = _np.array([draw(st.floats(-0.02, 0.02)) for _ in range(3)])
+    across = _np.array([draw(st.floats(0.002, 0.01)), draw(st.floats(-0.01, 0.01)), 0.0])
+    minus = plus - across
+    route = [(plus + minus) / 2.0]
+    direction = _np.array([0.0, 0.0, 1.0])
+    for _ in range(draw(st.integers(1, 4))):
+        turn = draw(st.floats(0.0, _np.pi / 3))
+        around = draw(st.floats(0.0, 2 * _np.pi))
+        side = _np.cross(direction, [1.0, 0.0, 0.0] if abs(direction[0]) < 0.9 else [0.0, 1.0, 0.0])
+        side /= _np.linalg.norm(side)
+        side = _np.cos(around) * side + _np.sin(around) * _np.cross(direction, side)
+        direction = _np.cos(turn) * direction + _np.sin(turn) * side
+        direction /= _np.linalg.norm(direction)
+        route.append(route[-1] + draw(st.floats(0.01, 0.1)) * direction)
+    spacing = draw(st.floats(0.5e-3, 3e-3))
+    pitch = draw(st.floats(4e-3, 20e-3))
+    pair = _TwistedPair(tuple(tuple(map(float, p)) for p in route), spacing, pitch)
+    return plus, minus, pair
