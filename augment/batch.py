@@ -5,8 +5,10 @@ any per-probe figure of the result document. The plan is checked completely befo
 anything runs. Cases then run in local worker processes or on a Dask distributed cluster
 through one plain task function, :func:`run_case`; a case that fails becomes an error row
 and never stops the others. The outcome is ``summary.csv``, a table on stdout, each case's
-report folder, optionally a JUnit XML file, and an exit code: 0 when every case ran within
-its limits, 1 when a limit broke or a case could not run.
+report folder (``CASE/SIDESTEM`` for a case comparing several side-files, with a
+``comparison.csv`` of their readings beside them), optionally a JUnit XML file, and an
+exit code: 0 when every case ran within its limits, 1 when a limit broke or a case could
+not run.
 """
 
 from __future__ import annotations
@@ -16,18 +18,18 @@ import io
 import math
 import os
 import re
+import signal
 import sys
-import tempfile
 import threading
 import time
 import tomllib
 import xml.etree.ElementTree as ET
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
 from augment.errors import AugmentError, Location, OptionError, PlanError
-from augment.units import engineering, spice_number
+from augment.units import spice_number
 
 # Per-probe figures of the result document that a limit may name; all in SI units.
 FIGURES = (
@@ -36,9 +38,9 @@ FIGURES = (
     "probed_min", "probed_max", "probed_pp",
     "max_abs_error", "rms_error", "ringing_hz", "lead_length_m",
 )
-# Columns of the terminal table, with the unit each figure is shown in.
-_TABLE_FIGURES = (("ideal_max", "V"), ("probed_max", "V"), ("max_abs_error", "V"),
-                  ("rms_error", "V"), ("ringing_hz", "Hz"))
+# Columns of summary.csv besides the figures, from report.summary_rows.
+_DESCRIPTION = ("instrument", "top_source", "top_peak_v")
+_TABLE_COLUMNS = ["case", "probe", "ideal_max", "probed_max", "max_abs_error", "rms_error", "ringing_hz", "status"]
 _CASE_KEYS = {"name", "netlist", "sidefile", "sidefiles", "limits"}
 _PLAN_KEYS = {"case", "limits"}
 _SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
@@ -156,9 +158,11 @@ def run_case(name: str, netlist: str, sidefile: str, out_dir: str | None, force:
     dict
         ``case``, ``netlist``, ``sidefile``, ``status`` (``"ok"`` or ``"error"``),
         ``exit_code``, ``message``, ``elapsed_s``, ``warnings`` and ``probes``: one dict
-        per probe with ``probe`` and the numeric figures of the result document.
+        per probe with ``probe``, the numeric figures of the result document (``FIGURES``),
+        the instrument's name and the largest contribution (``top_source``, ``top_peak_v``).
     """
     from augment.pipeline import run
+    from augment.report import summary_rows as probe_rows
 
     row = {"case": name, "netlist": netlist, "sidefile": sidefile, "status": "ok", "exit_code": 0,
            "message": "", "elapsed_s": 0.0, "warnings": [], "probes": []}
@@ -177,7 +181,7 @@ def run_case(name: str, netlist: str, sidefile: str, out_dir: str | None, force:
         row.update(status="error", exit_code=2, message=f"internal error ({type(error).__name__}: {error})")
     else:
         row["warnings"] = list(document.get("warnings", []))
-        row["probes"] = [_figures(probe) for probe in document["probes"]]
+        row["probes"] = [_figures(probe, flat) for probe, flat in zip(document["probes"], probe_rows(document))]
     row["elapsed_s"] = time.perf_counter() - started
     return row
 
@@ -218,6 +222,8 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
     OptionError
         When the output folder is unusable or the scheduler cannot be reached.
     """
+    from augment.report import write_text_atomic
+
     checked = load_plan(plan)
     out = Path(out_dir) if out_dir is not None else Path(f"{Path(plan).stem}-batch")
     _check_out_dir(out, checked, junit, force)
@@ -226,9 +232,10 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
              for case in checked.cases]
     finished: dict[str, dict] = {}
     interrupted = False
+    by_name = {case.name: case for case in checked.cases}
     runner = _dask_rows(tasks, scheduler) if scheduler else _local_rows(tasks, jobs)
     try:
-        for row in _with_progress(runner, len(tasks)):
+        for row in _with_progress(runner, len(tasks), lambda row: _verdict(by_name[row["case"]], row)):
             finished[row["case"]] = row
     except KeyboardInterrupt:
         interrupted = True
@@ -237,9 +244,11 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
         runner.close()
     rows = [row for case in checked.cases if case.name in finished
             for row in summary_rows(case, finished[case.name])]
-    _write_atomic(out / "summary.csv", _csv_text(rows, checked))
+    write_text_atomic(out / "summary.csv", _csv_text(rows, checked))
+    for group, members in _setups(rows).items():
+        write_text_atomic(out / group / "comparison.csv", _csv_text(members, checked, first="setup"))
     if junit is not None:
-        _write_atomic(junit, junit_xml(checked, finished))
+        write_text_atomic(junit, junit_xml(checked, finished))
     print(format_summary(rows), flush=True)
     for row in rows:
         if row["status"] != "ok":
@@ -283,16 +292,9 @@ def summary_rows(case: Case, row: dict) -> list[dict]:
 
 def format_summary(rows: list[dict]) -> str:
     """The terminal table: case, probe, the main figures in engineering notation, status."""
-    columns = ["case", "probe", *(key for key, _ in _TABLE_FIGURES), "status"]
-    units = dict(_TABLE_FIGURES)
-    shown = [{key: (engineering(row[key], units[key]) if key in units and row.get(key) is not None
-                    else "" if key in units else str(row.get(key, "")))
-              for key in columns} for row in rows]
-    try:
-        from augment.report import format_table
-    except ImportError:
-        format_table = _format_table
-    return format_table(shown, columns)
+    from augment.report import format_table
+
+    return format_table(rows, _TABLE_COLUMNS)
 
 
 def junit_xml(plan: Plan, finished: dict[str, dict]) -> str:
@@ -331,8 +333,8 @@ def junit_xml(plan: Plan, finished: dict[str, dict]) -> str:
     return ET.tostring(root, encoding="unicode", xml_declaration=True) + "\n"
 
 
-def _figures(probe: dict) -> dict:
-    figures = {"probe": probe["name"]}
+def _figures(probe: dict, flat: dict) -> dict:
+    figures = {"probe": probe["name"], **{key: flat.get(key) for key in _DESCRIPTION}}
     for key in FIGURES:
         value = probe.get(key)
         figures[key] = float(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else None
@@ -482,13 +484,18 @@ def _local_rows(tasks: list[tuple], jobs: int | None) -> Iterator[dict]:
 
     workers = max(1, min(jobs or os.cpu_count() or 1, len(tasks)))
     # spawn: a worker must not inherit this process's threads (progress bar, Dask client).
-    executor = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"))
+    executor = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"), initializer=_leave_interrupt)
     try:
         futures = {executor.submit(run_case, *task): task for task in tasks}
         for future in as_completed(futures):
             yield _row_of(future, futures[future])
     finally:
         executor.shutdown(wait=True, cancel_futures=True)
+
+
+def _leave_interrupt() -> None:
+    """Ignore Ctrl-C in a local worker (and its ngspice): the parent cancels and keeps the rows."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _dask_rows(tasks: list[tuple], scheduler: str) -> Iterator[dict]:
@@ -501,9 +508,9 @@ def _dask_rows(tasks: list[tuple], scheduler: str) -> Iterator[dict]:
     except (OSError, TimeoutError, ValueError) as error:
         raise OptionError("--scheduler", f"cannot reach the Dask scheduler at {scheduler}: {error}") from None
     try:
-        # pure=False: the same case run twice is two runs, never a cached result.
-        futures = {client.submit(run_case, *task, pure=False, key=f"augment-case-{i}"): task
-                   for i, task in enumerate(tasks)}
+        # pure=False: a fresh key per submission, so a case run twice (or by two batches on
+        # one cluster) is two runs, never a shared or cached result.
+        futures = {client.submit(run_case, *task, pure=False): task for task in tasks}
         for future in as_completed(futures):
             yield _row_of(future, futures[future])
     finally:
@@ -521,49 +528,45 @@ def _row_of(future, task: tuple) -> dict:
                 "elapsed_s": 0.0, "warnings": [], "probes": []}
 
 
-def _with_progress(rows: Iterator[dict], total: int) -> Iterator[dict]:
+def _verdict(case: Case, row: dict) -> str:
+    """The case's status in one word: error, limit or ok."""
+    statuses = {summary["status"] for summary in summary_rows(case, row)}
+    return next(status for status in ("error", "limit", "ok") if status in statuses)
+
+
+def _with_progress(rows: Iterator[dict], total: int, verdict: Callable[[dict], str]) -> Iterator[dict]:
     """Pass the rows on, with a progress bar on a terminal and one plain line per case otherwise."""
     if sys.stderr.isatty():
         from tqdm import tqdm
 
         with tqdm(total=total, unit="case", file=sys.stderr) as bar:
             for row in rows:
-                bar.set_postfix_str(row["case"], refresh=False)
+                bar.set_postfix_str(f"{row['case']}: {verdict(row)}", refresh=False)
                 bar.update()
                 yield row
         return
     for done, row in enumerate(rows, 1):
-        print(f"[{done}/{total}] {row['case']}: {row['status']} ({row['elapsed_s']:.1f} s)", file=sys.stderr, flush=True)
+        print(f"[{done}/{total}] {row['case']}: {verdict(row)} ({row['elapsed_s']:.1f} s)", file=sys.stderr, flush=True)
         yield row
 
 
-def _csv_text(rows: list[dict], plan: Plan) -> str:
+def _setups(rows: list[dict]) -> dict[str, list[dict]]:
+    """Rows of the cases that compare several side-files on one netlist, by case, each with its setup."""
+    groups: dict[str, list[dict]] = {}
+    for row in rows:
+        group, _, setup = row["case"].rpartition("/")
+        if group:
+            groups.setdefault(group, []).append({**row, "setup": setup})
+    return groups
+
+
+def _csv_text(rows: list[dict], plan: Plan, first: str = "case") -> str:
     limit_columns = list(dict.fromkeys(f"limit:{limit.key}" for case in plan.cases for limit in case.limits))
-    columns = ["case", "netlist", "sidefile", "probe", *FIGURES, *limit_columns, "status", "exit_code", "message"]
+    columns = [first, "netlist", "sidefile", "probe", "instrument", *FIGURES, "top_source", "top_peak_v",
+               *limit_columns, "status", "exit_code", "message"]
     buffer = io.StringIO()
     writer = csv.DictWriter(buffer, fieldnames=columns, extrasaction="ignore", lineterminator="\n")
     writer.writeheader()
     for row in rows:
         writer.writerow({key: "" if row.get(key) is None else row.get(key) for key in columns})
     return buffer.getvalue()
-
-
-def _format_table(rows: list[dict], columns: list[str]) -> str:
-    widths = {key: max([len(key), *(len(row[key]) for row in rows)]) for key in columns}
-    lines = ["  ".join(key.ljust(widths[key]) for key in columns)]
-    lines.append("  ".join("-" * widths[key] for key in columns))
-    lines += ["  ".join(row[key].ljust(widths[key]) for key in columns) for row in rows]
-    return "\n".join(lines)
-
-
-def _write_atomic(path: Path, text: str) -> None:
-    """Write to a temporary name beside ``path``, then rename: no reader sees half a file."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="") as stream:
-            stream.write(text)
-        os.replace(temporary, path)
-    except BaseException:
-        os.unlink(temporary)
-        raise

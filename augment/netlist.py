@@ -32,7 +32,8 @@ from types import MappingProxyType
 from augment.errors import Location, NetlistError
 from augment.units import spice_number
 
-GRAMMAR_DIR = Path(__file__).parent.parent / "grammar"
+# augment/grammar links to the top-level grammar/ folder, so wheels ship it too
+GRAMMAR_DIR = Path(__file__).parent / "grammar"
 
 GROUND_ALIASES = frozenset({"0", "gnd"})
 
@@ -646,21 +647,22 @@ def _check_value(name, rest) -> str | None:
 def _parse_code(codes: list[_Code]) -> list:
     """Parsed form of each code statement, in order; lark errors become NetlistErrors.
 
-    A statement that is a bare ``element: NAME WORD*`` line (tested with the grammar's own
-    NAME and WORD patterns) is split on white space and handed to the transformer's
-    ``element`` method directly: the LALR parser would produce the same tokens, and going
-    around it is what makes 100k-element netlists fast. Everything else goes through lark in
-    one call; so does a fast-path line whose element is malformed, to get its exact column.
+    A statement that is a bare ``element: NAME (WORD | EXPR | QUOTED)*`` line, tested with
+    the grammar's own terminal patterns, is cut into those tokens with the same patterns and
+    handed to the transformer's ``element`` method directly: the LALR parser would produce
+    the same tokens, and going around it is what makes 100k-element netlists fast. Everything
+    else goes through lark in one call; so does a fast-path line whose element is malformed,
+    to get its exact column.
     """
-    plain = _plain_element()
+    plain, tokens = _fast_path()
     transformer = _parser().options.transformer
     results: list = [None] * len(codes)
     slow: list[int] = []
     for index, code in enumerate(codes):
-        if plain(code.text):
-            words = code.text.split()
+        text = code.text
+        if plain(text):
             try:
-                results[index] = transformer.element(words)
+                results[index] = transformer.element(tokens(text) if "{" in text or "'" in text else text.split())
                 continue
             except _FieldError:
                 pass
@@ -672,12 +674,24 @@ def _parse_code(codes: list[_Code]) -> list:
 
 
 @lru_cache(maxsize=1)
-def _plain_element():
-    """Full-match test for ``NAME WORD*`` built from the grammar's terminal patterns."""
+def _fast_path():
+    """Full-match test for a bare element line, and its tokenizer, from the grammar's terminals."""
+    from lark import Token
+
     parser = _parser()
-    name = parser.get_terminal("NAME").pattern.to_regexp()
-    word = parser.get_terminal("WORD").pattern.to_regexp()
-    return re.compile(rf"[ \t]*{name}(?:[ \t]+{word})*[ \t]*").fullmatch
+    pattern = {name: parser.get_terminal(name).pattern.to_regexp() for name in ("NAME", "WORD", "EXPR", "QUOTED")}
+    field_pattern = f"{pattern['WORD']}|{pattern['EXPR']}|{pattern['QUOTED']}"
+    line = re.compile(rf"[ \t]*{pattern['NAME']}(?:[ \t]+(?:{field_pattern}))*[ \t]*")
+    token = re.compile(f"(?P<WORD>{pattern['WORD']})|(?P<EXPR>{pattern['EXPR']})|(?P<QUOTED>{pattern['QUOTED']})")
+
+    def tokens(text: str) -> list:
+        found = []
+        for match in token.finditer(text):
+            kind = match.lastgroup
+            found.append(match.group() if kind == "WORD" else Token(kind, match.group()))
+        return found
+
+    return line.fullmatch, tokens
 
 
 def _parse_with_lark(codes: list[_Code]) -> list:

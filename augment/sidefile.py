@@ -107,18 +107,27 @@ class Helix:
         return u, np.cross(w, u), w
 
     def points(self, segments_per_turn: int) -> np.ndarray:
-        """Vertices of the discretised helix, ``ceil(turns*segments_per_turn)`` segments."""
+        """Vertices of the discretised helix, ``ceil(turns*segments_per_turn)`` segments.
+
+        The vertices sit on a circle slightly larger than ``radius`` so that each turn's
+        polygon encloses the area of the round winding (equal-area polygon): the flux a turn
+        links, and so its mutual with whatever it encircles, then matches the round coil.
+        Inscribed in the circle itself, 24 segments a turn would lose 1.1 % of the area.
+        """
         u, v, w = self.frame()
         count = max(1, math.ceil(self.turns * segments_per_turn - 1e-9))
         theta = np.linspace(0.0, 2.0 * math.pi * self.turns, count + 1)
+        step = theta[1] - theta[0]
+        # polygon area n/2 r^2 sin(step) per turn equals pi radius^2 (n = 2 pi / step)
+        scale = math.sqrt(step / math.sin(step)) if 0 < step < math.pi else 1.0
         base = np.asarray(self.center) - w * self.length / 2.0
         rise = self.length * np.linspace(0.0, 1.0, count + 1)
-        return (base + self.radius * (np.cos(theta)[:, None] * u + np.sin(theta)[:, None] * v)
+        return (base + scale * self.radius * (np.cos(theta)[:, None] * u + np.sin(theta)[:, None] * v)
                 + rise[:, None] * w)
 
-    def ends(self) -> tuple[Position, Position]:
-        """First and last point of the winding."""
-        pts = self.points(1)
+    def ends(self, segments_per_turn: int) -> tuple[Position, Position]:
+        """First and last point of the winding as discretised."""
+        pts = self.points(segments_per_turn)
         return tuple(map(float, pts[0])), tuple(map(float, pts[-1]))
 
 
@@ -588,7 +597,7 @@ class _Loader:
             helix = self.helix(entry, f"coil {number + 1}", table, number, None)
             coils.append(CoilSpec(element.name, helix, self.index.where(table, number)))
             if element.name not in self.terminals:
-                self.terminals[element.name] = helix.ends()
+                self.terminals[element.name] = helix.ends(self.segments_per_turn)
                 self.terminal_locations[element.name] = self.index.where(table, number)
         return tuple(coils)
 

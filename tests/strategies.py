@@ -61,6 +61,18 @@ def netlist_texts(draw) -> str:
     return "\n".join(lines) + "\n"
 
 
+@st.composite
+def netlists_with_short_element(draw) -> tuple[str, int, int]:
+    """A generated netlist with one element line missing a node: (text, line, column)."""
+    lines = draw(netlist_texts()).splitlines()
+    # After the title and before .end, never between a statement and its + line.
+    spots = [i for i in range(1, len(lines)) if not lines[i].lstrip().startswith("+")]
+    spot = draw(st.sampled_from(spots))
+    indent = draw(st.sampled_from(["", " ", "\t", "   "]))
+    lines.insert(spot, f"{indent}{draw(st.sampled_from('RCL'))}999 n1")
+    return "\n".join(lines) + "\n", spot + 1, len(indent) + 1
+
+
 # ---------------------------------------------------------------------------------------
 # Segments (augment/inductance.py): pairs of straight filaments in every relative position.
 
@@ -164,3 +176,4 @@ def twisted_pair_routes(draw):
     pitch = draw(st.floats(4e-3, 20e-3))
     pair = _TwistedPair(tuple(tuple(map(float, p)) for p in route), spacing, pitch)
     return plus, minus, pair
+

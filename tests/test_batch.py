@@ -125,6 +125,15 @@ def local_run(tmp_path_factory):
     return {"plan": plan, "out": out, "junit": junit, "code": code, "rows": _summary(out)}
 
 
+@pytest.fixture(scope="module")
+def compare_run(tmp_path_factory):
+    """The plan comparing two setups on one netlist, run once with two local workers."""
+    folder = tmp_path_factory.mktemp("compare")
+    plan = _scenario(folder / "in", COMPARE_PLAN)
+    code = run_plan(plan, folder / "out", jobs=2, scheduler=None, junit=None, force=False)
+    return {"out": folder / "out", "code": code, "rows": _summary(folder / "out")}
+
+
 def _plan_error(tmp_path: Path, plan_text: str) -> PlanError:
     plan = _scenario(tmp_path, textwrap.dedent(plan_text))
     with pytest.raises(PlanError) as caught:
@@ -267,7 +276,7 @@ class TestFormatSummary:
         rows = summary_rows(_case(), _row(probes=[{"probe": "p1", "ideal_max": 0.5, "probed_max": 0.61,
                                                    "max_abs_error": 0.12, "rms_error": 0.01, "ringing_hz": 2.5e8}]))
         text = format_summary(rows)
-        header, _, line = text.splitlines()
+        header, line = text.splitlines()
         assert header.split() == ["case", "probe", "ideal_max", "probed_max", "max_abs_error", "rms_error",
                                   "ringing_hz", "status"]
         assert "610 mV" in line and "250 MHz" in line and line.split()[-1] == "ok"
@@ -368,14 +377,22 @@ class TestRunPlan:
         assert code == 1
         assert (tmp_path / "dask" / "summary.csv").read_text() == (local_run["out"] / "summary.csv").read_text()
 
-    def test_compare_setups_all_pass(self, tmp_path):
+    def test_compare_setups_all_pass(self, compare_run):
         """Two setups on one netlist within a plan-wide limit exit 0 with a row each."""
-        plan = _scenario(tmp_path / "in", COMPARE_PLAN)
-        code = run_plan(plan, tmp_path / "out", jobs=2, scheduler=None, junit=None, force=False)
-        rows = _summary(tmp_path / "out")
-        assert code == 0
-        assert [(row["case"], row["status"]) for row in rows] == [("setups/across", "ok"), ("setups/wide", "ok")]
-        assert (tmp_path / "out" / "setups" / "wide" / "result.json").is_file()
+        assert compare_run["code"] == 0
+        assert [(row["case"], row["status"]) for row in compare_run["rows"]] == [
+            ("setups/across", "ok"), ("setups/wide", "ok")]
+        assert (compare_run["out"] / "setups" / "wide" / "result.json").is_file()
+
+    def test_comparison_table_of_setups(self, compare_run):
+        """A case with several side-files gets comparison.csv: one row per setup and probe, as in the summary."""
+        with open(compare_run["out"] / "setups" / "comparison.csv", newline="", encoding="utf-8") as stream:
+            comparison = list(csv.DictReader(stream))
+        summary = compare_run["rows"]
+        assert [row["setup"] for row in comparison] == ["across", "wide"]
+        assert [row["probed_max"] for row in comparison] == [row["probed_max"] for row in summary]
+        # The wide ground loop encloses more flux than leads side by side (Faraday's law).
+        assert float(comparison[1]["max_abs_error"]) > float(comparison[0]["max_abs_error"])
 
     def test_refuses_non_empty_folder_without_force(self, tmp_path):
         """An existing non-empty output folder is refused before anything runs."""

@@ -132,9 +132,11 @@ turns = 12
         """Straight leads join the helix ends to placed terminals that differ from them."""
         text = BASE + "L1 = [[-20, 30, -5], [-20, 30, 45]]\n" + self.COIL
         coil = graph(text).conductor("coil:L1")
-        # Helix start: center - axis*length/2 + radius*u, u = x for a z axis: (-14, 30, 0) mm.
+        # Helix start: center - axis*length/2 + radius*u, u = x for a z axis: (-14, 30, 0) mm,
+        # the radius scaled for an equal-area polygon of 24 sides
+        scale = np.sqrt((2 * np.pi / 24) / np.sin(2 * np.pi / 24))
         assert coil.points[0] == pytest.approx((-0.020, 0.030, -0.005))
-        assert coil.points[1] == pytest.approx((-0.014, 0.030, 0.0))
+        assert coil.points[1] == pytest.approx((-0.020 + 0.006 * scale, 0.030, 0.0))
         assert coil.points[-1] == pytest.approx((-0.020, 0.030, 0.045))
         assert len(coil.points) - 1 == 12 * 24 + 2
 

@@ -28,7 +28,7 @@ from augment.netlist import (
     parse_netlist_text,
     write_netlist,
 )
-from tests.strategies import netlist_texts, spice_numbers
+from tests.strategies import netlist_texts, netlists_with_short_element, spice_numbers
 
 CORPUS = Path(__file__).parent / "corpus"
 CORPUS_NETLISTS = sorted(CORPUS.glob("*.cir"))
@@ -117,6 +117,12 @@ class TestParseNetlistText:
         """A source keeps DC, its value and the PULSE call as fields."""
         netlist = parse_netlist_text(FLAT)
         assert netlist.element("V1").fields == ("DC", "0", "PULSE(0 1 0 1n 1n 5n 10n)")
+
+    def test_calls_with_commas(self):
+        """Commas between call arguments are kept; nested calls and groups stay one field."""
+        netlist = parse_netlist_text("t\nV1 a 0 PULSE(0, 1, 2)\nB1 b 0 V = v(a,b) * (2 + 1)\n")
+        assert netlist.element("V1").fields == ("PULSE(0, 1, 2)",)
+        assert netlist.element("B1").fields == ("V=v(a, b)", "*(2 + 1)")
 
     def test_coupling_fields(self):
         """K has no nodes; its fields are the two inductors and the coupling factor."""
@@ -252,6 +258,24 @@ class TestParseNetlistText:
             parse_netlist_text(text, "ring.cir", tmp_path)
         assert str(caught.value).replace(str(tmp_path) + "/", "") == message
 
+    @given(netlists_with_short_element())
+    def test_generated_error_location(self, case):
+        """An element line short of a node is reported at its own line and column."""
+        text, line, column = case
+        with pytest.raises(NetlistError) as caught:
+            parse_netlist_text(text, "gen.cir")
+        assert caught.value.where == Location("gen.cir", line, column)
+        assert "needs 2 nodes, found 1" in caught.value.message
+
+    @given(netlist_texts())
+    def test_fast_path_agrees_with_lalr_parser(self, text):
+        """Statements taken around the parser come out as the LALR parser makes them."""
+        from augment.netlist import _Code, _parse_code, _parse_with_lark, _split
+
+        codes = [item for item in _split(text, "gen.cir", True)[1] if isinstance(item, _Code)]
+        fast = _parse_code(codes)
+        assert [tuple(map(str, r)) for r in fast] == [tuple(map(str, r)) for r in _parse_with_lark(codes)]
+
     @given(netlist_texts())
     def test_generated_netlists_round_trip(self, text):
         """A generated netlist writes back to its own text and parses back equal."""
@@ -293,6 +317,13 @@ class TestParseNetlist:
         (tmp_path / "sub" / "a.inc").write_text(".include b.inc\n")
         (tmp_path / "sub" / "b.inc").write_text(".subckt leaf p q\nR1 p q 1k\n.ends\n")
         assert "leaf" in parse_netlist(tmp_path / "top.cir").subcircuits
+
+    def test_quoted_include_path(self, tmp_path):
+        """A double-quoted include path may contain spaces."""
+        (tmp_path / "my parts").mkdir()
+        (tmp_path / "my parts" / "p.inc").write_text(".param rq=3k\n")
+        (tmp_path / "top.cir").write_text('t\n.include "my parts/p.inc"\nR1 a 0 {rq}\n.end\n')
+        assert parse_netlist(tmp_path / "top.cir").value_of("R1") == 3000.0
 
     def test_include_cycle_detected(self, tmp_path):
         """Files that include each other raise an error at the include that closes the loop."""

@@ -483,7 +483,17 @@ class TestHelix:
         points = self.helix().points(24)
         assert points[0, 2] == pytest.approx(-0.01, rel=1e-15)
         assert points[-1, 2] == pytest.approx(0.01, rel=1e-15)
-        assert np.allclose(np.hypot(points[:, 0], points[:, 1]), 0.01, rtol=1e-12)
+        # equal-area polygon: vertices on r * sqrt(step / sin(step)), step = 2 pi / 24
+        step = 2 * np.pi / 24
+        assert np.allclose(np.hypot(points[:, 0], points[:, 1]), 0.01 * np.sqrt(step / np.sin(step)), rtol=1e-12)
+
+    def test_each_turn_encloses_the_round_windings_area(self):
+        """A discretised turn's polygon has the area pi r^2 of the round turn."""
+        points = self.helix().points(24)[:25]
+        x, y = points[:, 0], points[:, 1]
+        # shoelace formula for the area of the closed polygon of one turn
+        area = 0.5 * abs(np.dot(x[:-1], y[1:]) - np.dot(x[1:], y[:-1]))
+        assert area == pytest.approx(np.pi * 0.01**2, rel=1e-12)
 
     def test_fractional_turns(self):
         """A fractional turn count still gets at least the asked segments a turn."""

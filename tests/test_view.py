@@ -115,6 +115,8 @@ class TestDrawGeometry:
     @pytest.mark.parametrize("name", sorted(p.stem for p in SCENARIOS.glob("*.toml")))
     def test_built_in_scenarios(self, tmp_path, name):
         """Every built-in scenario's geometry is drawn."""
-        netlist = parse_netlist(SCENARIOS / f"{name}.cir")
+        # a side-file NAME.toml or NAME_SETUP.toml goes with the netlist NAME.cir
+        cir = next(c for c in SCENARIOS.glob("*.cir") if name == c.stem or name.startswith(c.stem + "_"))
+        netlist = parse_netlist(cir)
         graph = build_graph(load_sidefile(SCENARIOS / f"{name}.toml", netlist), netlist)
         assert png_size(draw_geometry(graph, netlist, tmp_path / f"{name}.png", size_px=(600, 450))) == (600, 450)

@@ -1,0 +1,236 @@
+"""Tests for augment/synthesis.py: the augmented netlist and where its readings live."""
+
+from __future__ import annotations
+
+import math
+import re
+
+import numpy as np
+import pytest
+
+from augment.netlist import parse_netlist_text
+from augment.pipeline import build
+from augment.synthesis import SynthesisOptions
+
+from conftest import SCENARIOS
+
+DIVIDER = """divider with a fast edge
+V1 in 0 PULSE(0 1 1n 0.5n 0.5n 20n 40n)
+R1 in out 50
+R2 out 0 50
+.tran 0.05n 30n
+.end
+"""
+
+DIVIDER_SIDEFILE = """
+units = "mm"
+wire_radius = 0.25
+
+[terminals]
+R1 = [[0, 0, 0], [10, 0, 0]]
+R2 = [[20, 0, 0], [20, -10, 0]]
+
+[[wire]]
+net = "out"
+path = ["R1.2", "R2.1"]
+
+[[probe]]
+name = "across_R2"
+plus = "R2.1"
+minus = "R2.2"
+instrument = "passive-10x"
+plus_lead = ["R2.1", [40, 0, 0], [60, -4.5, 0]]
+minus_lead = ["R2.2", [40, -10, 0], [60, -5.5, 0]]
+"""
+
+
+def _added_block(text: str) -> list[str]:
+    start = text.index("---- added from side-file")
+    end = text.index("---- end of added lines")
+    return [line for line in text[start:end].splitlines()[1:] if line and not line.startswith("*")]
+
+
+class TestSynthesize:
+    def test_empty_sidefile_adds_nothing(self, write_case, simulator):
+        """A side-file with no geometry adds no element and the results are identical."""
+        netlist, sidefile = write_case(DIVIDER, 'units = "mm"\nwire_radius = 0.25\n')
+        built = build(netlist, sidefile)
+        assert (built.augmented.inductors, built.augmented.couplings) == (0, 0)
+        assert _added_block(built.augmented.text) == []
+        original = simulator.run(built.augmented.original_text).vectors
+        augmented = simulator.run(built.augmented.text).vectors
+        for node in ("in", "out", "time"):
+            np.testing.assert_array_equal(original[node], augmented[node])
+
+    def test_user_lines_stay_verbatim_except_rewired_terminals(self, write_case):
+        """Untouched statements are written as the user wrote them."""
+        netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
+        text = build(netlist, sidefile).augmented.text
+        assert "V1 in 0 PULSE(0 1 1n 0.5n 0.5n 20n 40n)" in text.splitlines()
+        assert text.splitlines()[0] == "divider with a fast edge"
+        # R1's terminal 1 gets the body's inner node; its terminal 2 stays on net out
+        assert re.search(r"^R1 R1_b out 50$", text, re.MULTILINE)
+
+    def test_every_added_line_names_its_conductor(self, write_case):
+        """Each added element line carries the conductor id it realises."""
+        netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
+        lines = _added_block(build(netlist, sidefile).augmented.text)
+        assert lines
+        ids = ("wire:", "body:", "coil:", "aggressor:", "probe:", "local:")
+        for line in lines:
+            assert "$" in line and any(i in line.split("$", 1)[1] for i in ids), line
+
+    def test_added_names_never_collide_with_the_users(self, write_case):
+        """Names the tool adds are unique even when the user already took the obvious ones."""
+        crowded = DIVIDER.replace(".tran", "LX_B_R1 x 0 1n\nRX_I_across_R2 x 0 1\n.tran")
+        netlist, sidefile = write_case(crowded, DIVIDER_SIDEFILE)
+        text = build(netlist, sidefile).augmented.text
+        parsed = parse_netlist_text(text, "augmented.cir")
+        names = [e.key for e in parsed.elements]
+        assert len(names) == len(set(names))
+        assert "LX_B_R1 x 0 1n" in text.splitlines()
+
+    def test_augmented_netlist_runs_for_every_scenario(self, simulator):
+        """Every built-in scenario's augmented netlist simulates in ngspice."""
+        for netlist, sidefile in (
+            ("sensing_loop.cir", "sensing_loop.toml"),
+            ("fast_edge.cir", "fast_edge_long.toml"),
+            ("fast_edge.cir", "fast_edge_spring.toml"),
+        ):
+            built = build(SCENARIOS / netlist, SCENARIOS / sidefile)
+            result = simulator.run(built.augmented.text)
+            for probe in built.augmented.probes:
+                assert np.all(np.isfinite(result.vectors[probe.probed_node]))
+
+    def test_counts_match_the_lines_written(self, write_case):
+        """`inductors` and `couplings` count the L and K lines the tool added."""
+        netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
+        built = build(netlist, sidefile)
+        lines = _added_block(built.augmented.text)
+        inductors = [l for l in lines if l.startswith("LX_") and not l.startswith("LX_D_")]
+        couplings = [l for l in lines if l.startswith("KX_")]
+        assert built.augmented.inductors == len(inductors)
+        assert built.augmented.couplings == len(couplings)
+
+    def test_coupling_coefficients_stay_below_one(self, write_case):
+        """Every K line's coefficient is strictly inside (-1, 1)."""
+        built = build(SCENARIOS / "sensing_loop.cir", SCENARIOS / "sensing_loop.toml")
+        for line in _added_block(built.augmented.text):
+            if line.startswith("KX_"):
+                assert abs(float(line.split()[3])) < 1
+
+    def test_kmin_drops_weak_couplings(self, write_case):
+        """A higher --kmin writes fewer K lines, and only the weak ones go."""
+        strict = build(SCENARIOS / "sensing_loop.cir", SCENARIOS / "sensing_loop.toml")
+        loose = build(SCENARIOS / "sensing_loop.cir", SCENARIOS / "sensing_loop.toml", SynthesisOptions(kmin=0.05))
+        assert loose.augmented.couplings < strict.augmented.couplings
+        for line in _added_block(loose.augmented.text):
+            if line.startswith("KX_"):
+                assert abs(float(line.split()[3])) >= 0.05
+
+    def test_full_coupling_adds_probe_loops_to_the_k_lines(self, write_case):
+        """With coupling='full' the probe loop inductor appears in K lines."""
+        netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
+        full = build(netlist, sidefile, SynthesisOptions(coupling="full")).augmented.text
+        assert any(l.startswith("KX_") and "LX_P_across_R2" in l for l in _added_block(full))
+        one_way = build(netlist, sidefile).augmented.text
+        assert not any(l.startswith("KX_") and "LX_P_across_R2" in l for l in _added_block(one_way))
+
+
+COIL_NETLIST = """a driven coil with a user coupling
+V1 a 0 PULSE(0 1 1n 1n 1n 50n 100n)
+R1 a b 10
+L1 b 0 1u
+L2 c 0 1u
+R2 c 0 10
+K1 L1 L2 0.3
+.tran 0.5n 50n
+.end
+"""
+
+COIL_SIDEFILE = """
+units = "mm"
+wire_radius = 0.2
+
+[[coil]]
+element = "L1"
+center = [0, 0, 20]
+axis = [0, 0, 1]
+radius = 5
+length = 40
+turns = 40
+"""
+
+
+class TestCoils:
+    def test_coil_element_takes_the_computed_inductance(self, write_case):
+        """A netlist inductor realised by [[coil]] gets the extracted value, with a warning."""
+        netlist, sidefile = write_case(COIL_NETLIST, COIL_SIDEFILE)
+        built = build(netlist, sidefile)
+        computed = built.inductance.henry[built.inductance.index("coil:L1"), built.inductance.index("coil:L1")]
+        # Wheeler 1928: L[uH] = a^2 N^2 / (9a + 10l), inches; a = 5 mm, l = 40 mm, N = 40
+        a_in, l_in = 5 / 25.4, 40 / 25.4
+        wheeler = a_in**2 * 40**2 / (9 * a_in + 10 * l_in) * 1e-6
+        assert computed == pytest.approx(wheeler, rel=0.03)
+        line = next(l for l in built.augmented.text.splitlines() if l.startswith("L1 "))
+        assert float(line.split()[3]) == pytest.approx(computed, rel=1e-8)
+        assert any("L1 is 1e-06 H in the netlist" in w for w in built.warnings)
+
+    def test_user_k_line_on_a_coil_is_replaced(self, write_case):
+        """A user's K line naming a realised coil is reported and left out."""
+        netlist, sidefile = write_case(COIL_NETLIST, COIL_SIDEFILE)
+        built = build(netlist, sidefile)
+        assert not any(l.startswith("K1 ") for l in built.augmented.text.splitlines())
+        assert any("K1 couples a coil" in w for w in built.warnings)
+
+
+AGGRESSOR_SIDEFILE = """
+units = "mm"
+wire_radius = 0.25
+
+[terminals]
+R2 = [[20, 0, 0], [20, -10, 0]]
+
+[[aggressor]]
+name = "bus"
+current = "PWL(0 0 10n 5)"
+path = [[-50, 10, 0], [100, 10, 0]]
+
+[[probe]]
+name = "across_R2"
+plus = "R2.1"
+minus = "R2.2"
+instrument = "ideal"
+plus_lead = ["R2.1", [40, 0, 0], [60, -4.5, 0]]
+minus_lead = ["R2.2", [40, -10, 0], [60, -5.5, 0]]
+"""
+
+
+class TestAggressors:
+    def test_aggressor_is_an_imposed_current(self, write_case, simulator):
+        """The aggressor's current source carries the side-file's waveform."""
+        netlist, sidefile = write_case(DIVIDER, AGGRESSOR_SIDEFILE)
+        built = build(netlist, sidefile)
+        source = next(l for l in _added_block(built.augmented.text) if l.startswith("IX_A_bus"))
+        assert "PWL(0 0 10n 5)" in source
+        vectors = simulator.run(built.augmented.text).vectors
+        current = vectors["vx_s_a_bus#branch"]
+        t = vectors["time"]
+        # PWL ramp: 5 A in 10 ns, then held
+        assert np.interp(5e-9, t, current) == pytest.approx(2.5, rel=1e-2)
+
+    def test_ideal_probe_reads_potential_minus_emf(self, write_case, simulator):
+        """With an ideal instrument the reading is V(plus) - V(minus) - M dI/dt (Romer 1982)."""
+        netlist, sidefile = write_case(DIVIDER, AGGRESSOR_SIDEFILE)
+        built = build(netlist, sidefile)
+        vectors = simulator.run(built.augmented.text).vectors
+        probe = built.augmented.probes[0]
+        mutual = built.augmented.probe_mutuals["across_R2"]["aggressor:bus"]
+        t = vectors["time"]
+        during = (t > 2e-9) & (t < 8e-9)
+        assert (probe.plus_net, probe.minus_net) == ("out", "0")
+        emf_free = vectors[probe.probed_node.lower()] - vectors["out"]
+        # during the ramp dI/dt = 5 A / 10 ns; every other conductor is nearly still
+        expected = -mutual * 5 / 10e-9
+        assert not math.isclose(expected, 0)
+        assert np.median(emf_free[during]) == pytest.approx(expected, rel=0.05)
