@@ -29,11 +29,12 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import constants
 
 from augment.errors import GeometryError
 
-MU0: float = constants.mu_0
+# vacuum permeability, CODATA 2022 (the value of scipy.constants.mu_0, written out so that
+# importing this module does not import scipy: `augment build` should start quickly)
+MU0: float = 1.25663706127e-6
 
 _K = MU0 / (4.0 * np.pi)
 

@@ -309,3 +309,13 @@ class TestCheckPositiveDefinite:
         # Neumann's integral diverges for overlapping collinear filaments
         with pytest.raises(GeometryError, match="wire:a and wire:b"):
             check_positive_definite(np.array([[1.0, np.inf], [np.inf, 1.0]]), ["wire:a", "wire:b"])
+
+
+class TestConstants:
+    def test_mu0_is_codata(self):
+        """MU0 is the vacuum permeability of scipy.constants (CODATA)."""
+        from scipy import constants
+
+        from augment.inductance import MU0
+
+        assert MU0 == constants.mu_0

@@ -1,0 +1,112 @@
+"""Tests for augment/compare.py: readings on one base, error figures, ringing, contributions."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from augment.compare import compare, ringing_frequency, summary
+from augment.sidefile import BUILTIN_INSTRUMENTS
+from augment.synthesis import DERIVATIVE_HENRY, Augmented, ProbeNodes
+
+
+def _step_with_ringing(f_hz: float, decay_s: float, t_end: float = 400e-9, dt: float = 0.1e-9):
+    """A 1 V step at 20 ns and, after it, an error ringing at f_hz that decays with decay_s."""
+    t = np.arange(0, t_end, dt)
+    ideal = np.where(t >= 20e-9, 1.0, 0.0)
+    after = np.clip(t - 20e-9, 0, None)
+    error = np.where(t >= 20e-9, -np.cos(2 * np.pi * f_hz * after) * np.exp(-after / decay_s), 0.0)
+    return t, ideal, error
+
+
+class TestRingingFrequency:
+    def test_damped_cosine_frequency(self):
+        """A decaying cosine's frequency is found within 1 % (analytic waveform)."""
+        t, ideal, error = _step_with_ringing(70e6, 60e-9)
+        # the zero crossings of exp(-t/tau) cos(2 pi f t) are exactly those of the cosine
+        assert ringing_frequency(t, ideal, error) == pytest.approx(70e6, rel=0.01)
+
+    def test_too_few_periods_is_none(self):
+        """Fewer than three periods above 5 % of the peak is no ringing (SPEC)."""
+        # 5 % of the peak is reached after tau ln 20 = 3 tau; one period is 1/f = 14.3 ns
+        t, ideal, error = _step_with_ringing(70e6, 10e-9)
+        assert 3 * 10e-9 * 70e6 < 3  # fewer than three periods before it fades under 5 %
+        assert ringing_frequency(t, ideal, error) is None
+
+    def test_flat_error_is_none(self):
+        """No error, no ringing."""
+        t, ideal, _ = _step_with_ringing(70e6, 60e-9)
+        assert ringing_frequency(t, ideal, np.zeros_like(t)) is None
+
+    def test_window_stops_at_the_next_edge(self):
+        """Ringing is measured after the largest edge only, up to the next edge."""
+        t, ideal, error = _step_with_ringing(50e6, 80e-9)
+        # a second, smaller edge at 300 ns with ringing of another frequency after it
+        late = t >= 300e-9
+        ideal = ideal + np.where(late, 0.5, 0.0)
+        error = np.where(late, 0.1 * np.sin(2 * np.pi * 200e6 * (t - 300e-9)), error)
+        assert ringing_frequency(t, ideal, error) == pytest.approx(50e6, rel=0.01)
+
+
+def _augmented(probe: ProbeNodes, mutual: float) -> Augmented:
+    return Augmented(
+        text="", original_text="", analysis="tran", probes=(probe,),
+        derivative_nodes={"wire:n1:1": "d_w"}, probe_mutuals={probe.name: {"wire:n1:1": mutual}},
+        inductor_names={}, inductors=0, couplings=0,
+    )
+
+
+PROBE = ProbeNodes(
+    name="p", plus_net="a", minus_net="0", probed_node="r_p_probed", local_node="r_p_local",
+    instrument=BUILTIN_INSTRUMENTS["ideal"], conductor="probe:p", lead_length_m=0.1,
+)
+
+
+class TestCompare:
+    def test_readings_and_error_figures(self):
+        """ideal is V(plus) - V(minus) of the original; error figures are of probed - ideal."""
+        t = np.linspace(0, 1e-6, 1001)
+        ideal = np.sin(2 * np.pi * 1e6 * t)
+        probed = ideal + 0.1
+        original = {"time": t, "a": ideal}
+        augmented = {
+            "time": t, "r_p_probed": probed, "r_p_local": ideal,
+            # the sensor of a 2 A/us ramp in wire:n1:1
+            "d_w": np.full_like(t, DERIVATIVE_HENRY * 2.0 / 1e-6),
+        }
+        comparison = compare(_augmented(PROBE, 5e-9), original, augmented)
+        (reading,) = comparison.readings
+        np.testing.assert_array_equal(reading.ideal, ideal)
+        row = summary(comparison, reading)
+        assert row["max_abs_error"] == pytest.approx(0.1)
+        assert row["rms_error"] == pytest.approx(0.1)
+        assert row["ideal_max"] == pytest.approx(1.0, abs=1e-5)
+        # contribution: M dI/dt = 5 nH * 2 A/us = 10 mV
+        (c,) = row["contributions"]
+        assert c == {"source": "wire:n1:1", "mutual_h": 5e-9, "peak_v": pytest.approx(0.01)}
+
+    def test_ideal_is_interpolated_onto_the_augmented_base(self):
+        """A different original time base is brought onto the augmented one."""
+        t = np.linspace(0, 1e-6, 101)
+        coarse = np.linspace(0, 1e-6, 11)
+        original = {"time": coarse, "a": coarse * 1e6}
+        augmented = {"time": t, "r_p_probed": t * 1e6, "r_p_local": t * 1e6, "d_w": np.zeros_like(t)}
+        (reading,) = compare(_augmented(PROBE, 0.0), original, augmented).readings
+        np.testing.assert_allclose(reading.ideal, t * 1e6, atol=1e-12)
+
+    def test_ac_figures_use_magnitudes(self):
+        """For AC the spans are of |V| and the error is the complex difference's magnitude."""
+        f = np.logspace(3, 6, 31)
+        ideal = 1 / (1 + 1j * f / 1e5)
+        probed = ideal * 1.1
+        original = {"frequency": f, "a": ideal}
+        augmented = {"frequency": f, "r_p_probed": probed, "r_p_local": ideal, "d_w": np.zeros(31, complex)}
+        ac = replace(_augmented(PROBE, 0.0), analysis="ac")
+        comparison = compare(ac, original, augmented)
+        row = summary(comparison, comparison.readings[0])
+        assert row["probed_max"] == pytest.approx(1.1 * abs(ideal).max())
+        assert row["max_abs_error"] == pytest.approx(0.1 * abs(ideal).max())
+        assert math.isfinite(row["rms_error"])
