@@ -43,6 +43,12 @@ def build(netlist_path: str | Path, sidefile_path: str | Path, options: Synthesi
     timings["parse"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     sidefile = load_sidefile(sidefile_path, netlist)
+    instances = _instances_to_flatten(sidefile)
+    if instances:
+        # elements placed inside subcircuit instances (X1.R3) need those instances expanded
+        for instance in instances:
+            netlist = netlist.flatten(instance)
+        sidefile = load_sidefile(sidefile_path, netlist)
     graph = build_graph(sidefile, netlist)
     timings["geometry"] = time.perf_counter() - t0
     t0 = time.perf_counter()
@@ -52,6 +58,12 @@ def build(netlist_path: str | Path, sidefile_path: str | Path, options: Synthesi
     augmented = synthesize(netlist, graph, inductance, options, sidefile_name=Path(sidefile_path).name)
     timings["build"] = time.perf_counter() - t0
     return Built(netlist, graph, inductance, augmented, (*graph.warnings, *augmented.notes), timings)
+
+
+def _instances_to_flatten(sidefile) -> list[str]:
+    """Top-level X instances that hold an element the side-file places or realises."""
+    names = [*sidefile.terminals, *(coil.element for coil in sidefile.coils)]
+    return sorted({name.split(".")[0] for name in names if "." in name})
 
 
 def simulate_and_compare(built: Built, simulator):

@@ -379,3 +379,21 @@ class TestResultDocument:
         assert document["probes"][0]["max_abs_error"] == pytest.approx(np.max(np.abs(error)))
         # rms over a uniform grid (.options interp): trapezoid rule against the plain mean
         assert document["probes"][0]["rms_error"] == pytest.approx(np.sqrt(np.mean(error**2)), rel=0.01)
+
+
+class TestAcAnalysis:
+    def test_probe_resonance_in_frequency(self, write_case, simulator):
+        """In .ac the long-lead probe's |V| peaks at 1/(2 pi sqrt(L C)) and reads true at low f."""
+        netlist = FAST_EDGE_NETLIST.replace("PULSE(0 1 5n 0.5n 0.5n 1u 2u)", "DC 0 AC 1").replace(
+            ".tran 0.02n 150n", ".ac dec 400 1meg 1g"
+        )
+        built, readings, comparison = _readings(*write_case(netlist, LONG_GROUND_SIDEFILE), simulator)
+        assert comparison.analysis == "ac"
+        r = readings["long_ground"]
+        f = comparison.base
+        i = built.inductance.index("probe:long_ground")
+        # analytic series LC: resonance at 1/(2 pi sqrt(L C)), C the 10x probe's 12 pF
+        expected = 1 / (2 * math.pi * math.sqrt(built.inductance.henry[i, i] * 12e-12))
+        assert f[np.argmax(np.abs(r.probed))] == pytest.approx(expected, rel=0.05)
+        # far below resonance the probe reads the node: |probed| = |ideal| within 1 %
+        assert abs(r.probed[0]) == pytest.approx(abs(r.ideal[0]), rel=0.01)
