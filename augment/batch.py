@@ -483,8 +483,11 @@ def _local_rows(tasks: list[tuple], jobs: int | None) -> Iterator[dict]:
     from multiprocessing import get_context
 
     workers = max(1, min(jobs or os.cpu_count() or 1, len(tasks)))
-    # spawn: a worker must not inherit this process's threads (progress bar, Dask client).
-    executor = ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn"), initializer=_leave_interrupt)
+    # forkserver: workers must not inherit this process's threads (progress bar, Dask
+    # client); the server imports the pipeline once and every worker starts with it.
+    context = get_context("forkserver")
+    context.set_forkserver_preload(["augment.batch", "augment.pipeline", "augment.report"])
+    executor = ProcessPoolExecutor(max_workers=workers, mp_context=context, initializer=_leave_interrupt)
     try:
         futures = {executor.submit(run_case, *task): task for task in tasks}
         for future in as_completed(futures):

@@ -24,7 +24,12 @@ RINGING_THRESHOLD = 0.05  # of the error's peak after the edge (SPEC)
 
 @dataclass(frozen=True, slots=True)
 class Contribution:
-    """Induced EMF in a probe loop from one current-carrying conductor."""
+    """Induced EMF in a probe loop from one current-carrying conductor.
+
+    The loop is the probe's leads closed by the straight path between its two points, so
+    the contributions add up to what the leads pick up beyond a zero-area probe
+    (probed - local, less the leads' own L di/dt and the instrument's response).
+    """
 
     source: str  # conductor id
     mutual_h: float
@@ -72,48 +77,71 @@ def _base(vectors: Mapping[str, np.ndarray], analysis: str) -> np.ndarray:
 
 
 def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> float | None:
-    """Frequency of the oscillation in ``error`` after the largest edge of ``ideal``.
+    """Frequency of the strongest oscillation in ``error`` after the largest edge of ``ideal``.
 
-    The edge is where |d ideal/dt| is largest (the error's own steepest point when the ideal
-    waveform is flat); the window runs from the end of that edge to the start of the next
-    one. In it the error is taken about its settled value (the mean of the window's last
-    tenth) and its crossings of that value are counted while each half-cycle's peak stays
-    above 5 % of the largest (SPEC); fewer than three periods mean no ringing (None). The
-    frequency is the number of half-periods over the time they span, crossing instants
-    interpolated linearly between samples.
+    The window runs from the end of the ideal waveform's steepest edge to the start of its
+    next edge (from the error's own steepest point to the end when the ideal waveform is
+    flat, as when all of the reading is pickup). In that window the strongest spectral line
+    whose period fits three times is taken, the error is band-passed around it (zero-phase,
+    so crossing instants stay put), and its crossings are counted while the oscillation's
+    envelope stays above 5 % of its peak (SPEC). Fewer than three periods, or an oscillation
+    under 1 % of the error's own peak (numerical noise), mean no ringing: None. The
+    frequency is the number of half-periods over the time they span.
     """
-    if len(base) < 8:
+    if len(base) < 16:
         return None
+    window = _after_largest_edge(base, ideal, error)
+    if window is None:
+        return None
+    t, x = base[window], error[window]
+    if len(x) < 16 or np.ptp(x) == 0:
+        return None
+    from scipy import signal
+
+    dt = float(np.median(np.diff(t)))
+    x = signal.detrend(x)
+    spectrum = np.abs(np.fft.rfft(x * np.hanning(len(x))))
+    frequencies = np.fft.rfftfreq(len(x), dt)
+    usable = frequencies >= RINGING_MIN_PERIODS / (t[-1] - t[0])
+    if not np.any(usable[1:]):
+        return None
+    peak_f = frequencies[usable][np.argmax(spectrum[usable])]
+    nyquist = 0.5 / dt
+    low, high = 0.7 * peak_f / nyquist, min(1.3 * peak_f / nyquist, 0.99)
+    if not 0 < low < high:
+        return None
+    sos = signal.butter(2, [low, high], btype="bandpass", output="sos")
+    ring = signal.sosfiltfilt(sos, x)
+    envelope = np.abs(signal.hilbert(ring))
+    if envelope.max() < 0.01 * np.max(np.abs(error[window])):
+        return None
+    # from the envelope's peak on, while it stays above 5 % of that peak
+    top = int(np.argmax(envelope))
+    above = envelope[top:] >= RINGING_THRESHOLD * envelope[top]
+    stop = top + (int(np.argmin(above)) if not above.all() else len(above))
+    y, ty = ring[top:stop], t[top:stop]
+    sign = np.signbit(y)
+    k = np.nonzero(sign[1:] != sign[:-1])[0]
+    if len(k) < 2 * RINGING_MIN_PERIODS + 1:
+        return None
+    instants = ty[k] - y[k] * (ty[k + 1] - ty[k]) / (y[k + 1] - y[k])
+    span = instants[-1] - instants[0]
+    return float((len(instants) - 1) / (2 * span)) if span > 0 else None
+
+
+def _after_largest_edge(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> slice | None:
+    """Samples from the end of the largest edge of ``ideal`` to the start of its next edge."""
     slope = np.abs(np.gradient(ideal, base))
     if not np.any(slope > 0):
         slope = np.abs(np.gradient(error, base))
+        return slice(int(np.argmax(slope)), len(base)) if np.any(slope > 0) else None
     steep = slope > 0.1 * slope.max()
     start = int(np.argmax(slope))
     while start < len(base) - 1 and steep[start]:
         start += 1
     later = np.nonzero(steep[start:])[0]
     stop = start + int(later[0]) if len(later) else len(base)
-    t, x = base[start:stop], error[start:stop]
-    if len(x) < 8:
-        return None
-    x = x - x[-max(1, len(x) // 10) :].mean()
-    peak = np.max(np.abs(x))
-    if peak == 0:
-        return None
-    sign = np.signbit(x)
-    crossings = np.nonzero(sign[1:] != sign[:-1])[0]
-    # keep crossings while the half-cycle before each is still above the threshold
-    kept = crossings[:1].tolist()
-    for a, b in zip(crossings[:-1], crossings[1:]):
-        if np.max(np.abs(x[a : b + 1])) < RINGING_THRESHOLD * peak:
-            break
-        kept.append(b)
-    if len(kept) < 2 * RINGING_MIN_PERIODS + 1:
-        return None
-    k = np.asarray(kept)
-    instants = t[k] - x[k] * (t[k + 1] - t[k]) / (x[k + 1] - x[k])
-    span = instants[-1] - instants[0]
-    return float((len(instants) - 1) / (2 * span)) if span > 0 else None
+    return slice(start, stop)
 
 
 def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Mapping) -> Comparison:
@@ -141,7 +169,7 @@ def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Map
         contributions = sorted(
             (
                 Contribution(cid, m, float(np.max(np.abs(m * derivative[cid]))) if size else 0.0)
-                for cid, m in augmented.probe_mutuals[probe.name].items()
+                for cid, m in augmented.loop_mutuals[probe.name].items()
                 if m != 0.0 and cid in derivative
             ),
             key=lambda c: -c.peak_v,

@@ -316,6 +316,22 @@ class InductanceMatrix:
         return self.ids.index(conductor_id)
 
 
+def _local_radius(graph, setup) -> float:
+    """Radius of a probe's zero-area path: that of a conductor lying exactly along it, if any.
+
+    Across a body the zero-area path is the body itself; giving it the body's radius makes
+    its mutual with the body equal the body's self inductance, so the local reading is the
+    element's own drop whatever the probe's lead radius.
+    """
+    a, b = setup.local_points[0], setup.local_points[-1]
+    for c in graph.conductors:
+        if c.kind != "probe" and len(c.points) == 2:
+            p, q = c.points[0], c.points[-1]
+            if (np.allclose(p, a) and np.allclose(q, b)) or (np.allclose(p, b) and np.allclose(q, a)):
+                return c.radius
+    return graph.conductors[[x.id for x in graph.conductors].index(setup.conductor)].radius
+
+
 def extract(graph) -> InductanceMatrix:
     """Lumped inductance matrix of every conductor of ``graph`` and of the zero-area paths.
 
@@ -336,7 +352,7 @@ def extract(graph) -> InductanceMatrix:
         reference_ids.append(f"local:{setup.name}")
         starts.append(setup.local_points[:-1])
         ends.append(setup.local_points[1:])
-        radii.append(np.full(len(setup.local_points) - 1, graph.conductors[ids.index(setup.conductor)].radius))
+        radii.append(np.full(len(setup.local_points) - 1, _local_radius(graph, setup)))
         owner.append(np.full(len(setup.local_points) - 1, len(ids) + len(reference_ids) - 1))
     total = len(ids) + len(reference_ids)
     if not starts:

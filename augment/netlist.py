@@ -53,6 +53,9 @@ _DEVICE_FLAGS = frozenset({"off", "area", "temp", "dtemp", "ic"})
 
 _VALUE_KINDS = frozenset({"R", "C", "L"})
 
+# Each nested include is a few Python frames deep; real netlists nest a handful of levels.
+_MAX_INCLUDE_DEPTH = 64
+
 _COMMENT_START = re.compile(r";|(?:^|(?<=[ \t]))\$")
 _NUMBERISH = re.compile(r"^[+-]?(?:\d|\.\d)")
 
@@ -531,6 +534,7 @@ def _statements_transformer():
                 if len(rest) < 3:
                     raise _FieldError(name, f"coupling {name} needs two inductor names and a coupling factor")
                 value = str(rest[2])
+                _check_coupling(name, rest[2])
             return ("element", name, kind, tuple(_node(n) for n in nodes), value, tuple(map(str, rest)))
 
         def subckt(self, children):
@@ -642,6 +646,19 @@ def _check_value(name, rest) -> str | None:
         except ValueError:
             raise _FieldError(value, f"bad number '{value}' for element {name}") from None
     return str(value)
+
+
+def _check_coupling(name, factor) -> None:
+    """A literal coupling factor must be a number with |k| < 1 (k = 1 makes the matrix singular)."""
+    if not (_is_plain(factor) and _NUMBERISH.match(factor)):
+        return
+    try:
+        k = spice_number(factor)
+    except ValueError:
+        raise _FieldError(factor, f"bad coupling factor '{factor}' for {name}") from None
+    if not abs(k) < 1.0:
+        raise _FieldError(factor, f"coupling factor of {name} is {factor}: |k| must be below 1 "
+                                  f"(|k| = 1 is a perfect coupling, a singular inductance matrix)")
 
 
 def _parse_code(codes: list[_Code]) -> list:
@@ -767,6 +784,11 @@ def _parse_text(text: str, filename: str, base_dir: Path, *, has_title: bool, st
 
 def _build(text: str, filename: str, base_dir: Path, has_title: bool, stack: tuple,
            section: str | None) -> Netlist:
+    if has_title and not text.strip():
+        raise NetlistError(Location(filename, 1, 1), "the netlist is empty: a title line, elements and an analysis are expected")
+    nul = text.find("\x00")
+    if nul >= 0:
+        raise NetlistError(_offset_location(text, nul, filename), "NUL byte in the netlist: is this a binary file?")
     title, items = _split(text, filename, has_title)
     codes = [item for item in items if isinstance(item, _Code)]
     parsed = iter(_parse_code(codes))
@@ -879,6 +901,9 @@ class _Builder:
         path = self.base_dir / str(fields[0]).strip("\"'")
         section = str(fields[1]).lower() if tag == "lib" and len(fields) > 1 else None
         resolved = path.resolve()
+        if len(self.stack) > _MAX_INCLUDE_DEPTH:
+            raise NetlistError(directive.location, f"includes nested more than {_MAX_INCLUDE_DEPTH} deep "
+                               f"(from {self.stack[0].name})")
         if resolved in self.stack:
             chain = " -> ".join(p.name for p in (*self.stack, resolved))
             raise NetlistError(directive.location, f"include cycle: {chain}")
@@ -900,6 +925,15 @@ class _Builder:
             if instance.fields[0].lower() not in self.subcircuits:
                 where = Location(instance.location.file, instance.location.line, instance.location.column)
                 raise NetlistError(where, f"unknown subcircuit '{instance.fields[0]}' in {instance.name}")
+        for element in self.top if self.top_level else ():
+            if isinstance(element, Element) and element.kind == "K" and element.value[:1] in "{'":
+                try:
+                    k = _evaluate(element.value, self.params, ())
+                except ValueError:
+                    continue  # ngspice will say what is wrong with the expression
+                if not abs(k) < 1.0:
+                    raise NetlistError(element.location, f"coupling factor of {element.name} is "
+                                       f"{element.value} = {k:g}: |k| must be below 1")
         title_text = title.strip()
         return Netlist(self.filename, title_text, tuple(self.top), MappingProxyType(self.subcircuits),
                        MappingProxyType(self.params), title if title else None, frozenset(self.models),
@@ -909,9 +943,22 @@ class _Builder:
 def _read(path: Path, where: Location, what: str) -> str:
     try:
         # Bytes, so that CRLF line ends survive for the writer.
-        return path.read_bytes().decode("utf-8", errors="replace")
+        data = path.read_bytes()
     except OSError as error:
         raise NetlistError(where, f"cannot read {what} '{path}': {error.strerror or error}") from None
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as error:
+        # ngspice would read the bytes some other way; say where, rather than guess an encoding.
+        before = data[:error.start].decode("utf-8")
+        raise NetlistError(_offset_location(before, len(before), str(path)),
+                           f"byte 0x{data[error.start]:02x} is not UTF-8 text; save the {what} as UTF-8") from None
+
+
+def _offset_location(text: str, offset: int, filename: str) -> Location:
+    """1-based line and column of character ``offset`` of ``text``."""
+    line_start = text.rfind("\n", 0, offset) + 1
+    return Location(filename, text.count("\n", 0, offset) + 1, offset - line_start + 1)
 
 
 def _assignments(args: str) -> list[tuple[str, str]]:

@@ -20,7 +20,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from augment.errors import Location, SideFileError
+from augment.errors import Location, NetlistError, SideFileError
 from augment.units import LENGTH_UNITS, length_scale, spice_number
 
 Position = tuple[float, float, float]
@@ -41,6 +41,11 @@ _LEADS_KEYS = {"route", "spacing", "twist_pitch"}
 _INSTRUMENT_KEYS = {"resistance", "capacitance", "bandwidth", "differential", "reference_resistance"}
 _ANALYSIS_KEYS = {"tran", "ac"}
 _MIN_SEGMENTS_PER_TURN = 8
+# No coordinate or length beyond a kilometre: larger is a typo or a unit slip, and squares of
+# such numbers overflow in the kernels (common practice, no source).
+_MAX_EXTENT_M = 1e3
+# What each [analysis] line holds after its keyword: (names of the numbers, how many are required).
+_ANALYSIS_FIELDS = {"tran": (("TSTEP", "TSTOP", "TSTART", "TMAX"), 2), "ac": (("points", "FSTART", "FSTOP"), 3)}
 _DEFAULT_SEGMENTS_PER_TURN = 24
 # How far apart the two lead ends may be at the instrument, in lead radii or in the spacing of
 # the leads just before their ends, whichever is larger (common practice, no source).
@@ -326,9 +331,16 @@ def load_sidefile(path: str | Path, netlist: Any) -> SideFile:
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SideFileError(Location(str(path), 1, 1), f"cannot read the side-file: {exc}") from None
+        data = path.read_bytes()
+    except OSError as exc:
+        raise SideFileError(Location(str(path), 1, 1), f"cannot read the side-file: {exc.strerror or exc}") from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        before = data[:exc.start].decode("utf-8")
+        line_start = before.rfind("\n") + 1
+        where = Location(str(path), before.count("\n") + 1, len(before) - line_start + 1)
+        raise SideFileError(where, f"byte 0x{data[exc.start]:02x} is not UTF-8 text; TOML files are UTF-8") from None
     return load_sidefile_text(text, str(path), netlist)
 
 
@@ -436,6 +448,9 @@ class _Loader:
         number = self.number(value, what, table, index, key, subkey)
         if number <= 0:
             self.fail(f"{what} must be greater than 0, not {value:g} {self.units}", table, index, key, subkey)
+        if number * self.scale > _MAX_EXTENT_M:
+            self.fail(f"{what} is {value:g} {self.units}, more than {_MAX_EXTENT_M:g} m: check the number "
+                      f"and the units", table, index, key, subkey)
         return number * self.scale
 
     def boolean(self, value: Any, what: str, table: tuple[str, ...], index: int | None) -> bool:
@@ -468,6 +483,9 @@ class _Loader:
             self.fail(f"{what} must be a point [x, y, z] in {self.units}, not {value!r}", table, index, key, subkey)
         if not all(math.isfinite(c) for c in value):
             self.fail(f"{what} has a coordinate that is not finite: {value!r}", table, index, key, subkey)
+        if any(abs(c) * self.scale > _MAX_EXTENT_M for c in value):
+            self.fail(f"{what} is {value!r} {self.units}, more than {_MAX_EXTENT_M:g} m from the origin: check "
+                      f"the numbers and the units", table, index, key, subkey)
         return tuple(float(c) * self.scale for c in value)
 
     def point(self, value: Any, what: str, table: tuple[str, ...], index: int | None, key: str) -> Point:
@@ -556,7 +574,34 @@ class _Loader:
             if not isinstance(value, str) or not value.strip():
                 self.fail(f"analysis {key} must be the text of its SPICE line, e.g. tran = \"0.5n 4u\"",
                           ("analysis",), None, key)
+            self.check_analysis(key, value)
         return {key: value.strip() for key, value in section.items()}
+
+    def check_analysis(self, key: str, value: str) -> None:
+        """The numbers of a .tran or .ac line: ``tran = "TSTEP TSTOP [TSTART [TMAX]] [uic]"``,
+        ``ac = "dec|oct|lin POINTS FSTART FSTOP"``."""
+        names, required = _ANALYSIS_FIELDS[key]
+        fields = value.split()
+        example = 'tran = "0.5n 4u"' if key == "tran" else 'ac = "dec 20 1k 100meg"'
+        if key == "tran" and fields and fields[-1].lower() == "uic":
+            fields = fields[:-1]
+        if key == "ac":
+            if not fields or fields[0].lower() not in {"dec", "oct", "lin"}:
+                self.fail(f"analysis ac = {value!r} must start with dec, oct or lin, e.g. {example}",
+                          ("analysis",), None, key)
+            fields = fields[1:]
+        if not required <= len(fields) <= len(names):
+            self.fail(f"analysis {key} = {value!r} needs {' '.join(names[:required])} "
+                      f"(and optionally {' '.join(names[required:]) or 'nothing more'}), e.g. {example}",
+                      ("analysis",), None, key)
+        for name, field in zip(names, fields):
+            try:
+                number = spice_number(field)
+            except ValueError:
+                self.fail(f"analysis {key}: {name} = {field!r} is not a SPICE number, e.g. {example}",
+                          ("analysis",), None, key)
+            if number < 0 or (number == 0 and name != "TSTART"):
+                self.fail(f"analysis {key}: {name} = {field!r} must be greater than 0", ("analysis",), None, key)
 
     def read_terminals(self) -> tuple[dict[str, tuple[Position, ...]], dict[str, Location]]:
         section = self.doc.get("terminals", {})
@@ -727,6 +772,7 @@ class _Loader:
             if not isinstance(current, str) or not current.strip():
                 self.fail(f"{what} needs current = \"...\" in SPICE independent-source syntax, e.g. "
                           f"\"PULSE(0 1 0 1n 1n 1u 2u)\"", table, number)
+            self.check_current(current, what, table, number)
             radius = self.length(entry.get("radius"), f"radius of {what}", table, number, "radius",
                                  default=self.wire_radius)
             if ("path" in entry) == ("coil" in entry):
@@ -744,6 +790,18 @@ class _Loader:
             aggressors.append(AggressorSpec(name, current.strip(), path, helix, radius,
                                             self.index.where(table, number)))
         return tuple(aggressors)
+
+    def check_current(self, current: str, what: str, table: tuple[str, ...], number: int) -> None:
+        """The current is the value of an independent source line; it must parse as one."""
+        from augment.netlist import parse_netlist_text
+
+        if "\n" in current or "\r" in current:
+            self.fail(f"the current of {what} must be on one line", table, number, "current")
+        try:
+            parse_netlist_text(f"aggressor\nIAGGRESSOR a 0 {current}\n", self.file)
+        except NetlistError as error:  # located in the one-line text above, so only its words
+            self.fail(f"the current of {what} is not a SPICE source value ({error.message}): {current!r}",
+                      table, number, "current")
 
     def read_probes(self) -> tuple[ProbeSpec, ...]:
         probes = []

@@ -66,7 +66,10 @@ class Augmented:
     analysis: str
     probes: tuple[ProbeNodes, ...]
     derivative_nodes: Mapping[str, str]  # conductor id -> node holding DERIVATIVE_HENRY * dI/dt
-    probe_mutuals: Mapping[str, Mapping[str, float]]  # probe -> conductor id -> M (H)
+    probe_mutuals: Mapping[str, Mapping[str, float]]  # probe -> conductor id -> partial M (H)
+    # probe -> conductor id -> mutual with the probe loop closed by the straight path between
+    # its points (partial M of the leads minus that of the path): the loop's EMF per dI/dt
+    loop_mutuals: Mapping[str, Mapping[str, float]]
     inductor_names: Mapping[str, str]  # conductor id -> the inductor that realises it
     inductors: int
     couplings: int
@@ -345,6 +348,7 @@ def synthesize(
 
     probes: list[ProbeNodes] = []
     probe_mutuals: dict[str, dict[str, float]] = {}
+    loop_mutuals: dict[str, dict[str, float]] = {}
     for setup in graph.probes:
         c = conductors[setup.conductor]
         p = index[c.id]
@@ -353,6 +357,7 @@ def synthesize(
         probe_mutuals[setup.name] = mutuals
         local = inductance.reference_mutual[inductance.reference_ids.index(f"local:{setup.name}")]
         local_mutuals = {cc.id: float(local[index[cc.id]]) for cc in carrying}
+        loop_mutuals[setup.name] = {cid: mutuals[cid] - local_mutuals[cid] for cid in mutuals}
         instrument = setup.instrument
         lines.append(f"* probe {setup.name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
 
@@ -413,6 +418,7 @@ def synthesize(
         probes=tuple(probes),
         derivative_nodes=derivative_nodes,
         probe_mutuals=probe_mutuals,
+        loop_mutuals=loop_mutuals,
         inductor_names={
             **inductor_of,
             **{f"probe:{name}": inductor for name, inductor in probe_inductors.items()},

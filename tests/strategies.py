@@ -177,3 +177,163 @@ def twisted_pair_routes(draw):
     pair = _TwistedPair(tuple(tuple(map(float, p)) for p in route), spacing, pitch)
     return plus, minus, pair
 
+
+
+# ---------------------------------------------------------------------------------------
+# Mutations of valid inputs (tests/test_robustness.py): what a half-edited file looks like.
+
+import re as _re  # noqa: E402
+
+# Tokens a typo, a paste or a bad export puts into a netlist: numbers at and past the float
+# range, broken numbers and expressions, structure keywords out of place, odd bytes.
+_NETLIST_TOKENS = [
+    "1e308", "1e309", "-1e308", "1e-320", "nan", "inf", "-inf", "0", "-0", "1.2.3k", "1meg", "1e",
+    "{", "}", "(", ")", "'", '"', "=", "+", "*", ";", "$", ",", "{1/0}", "{nan}", "'1e400'",
+    ".subckt", ".ends", ".end", ".control", ".endc", ".param x=", ".include", ".lib", ".tran",
+    ".ac dec 0 0 0", ".tran 0 0", ".tran -1n 1n", "K1", "L1", "X1", "R1", "0", "gnd", "in", "out",
+    "PULSE(", "SIN(0 1", "\x00", "\t", "\r", "\x0c", "\u00b5", "\u03a9", "\ufeff", "\udcff",
+]
+# Values that a side-file's numbers, strings and lists get replaced with.
+_TOML_VALUES = [
+    "nan", "inf", "-inf", "+inf", "1e308", "-1e308", "1e-308", "5e-324", "0", "-0.0", "-1",
+    "0.5", "1e30", "true", '""', '"R1.9"', '"C1.0"', '"X.1"', '"R1.2"', '"nonsense"', "[]",
+    "[0, 0]", "[0, 0, 0, 0]", '[1, "a", 2]', "[[0, 0, 0]]", "{}", "{ a = 1 }", '"1.2.3k"',
+    '"PULSE(0 1"', '"inf"', '"-3p"', "9999999999999999999999",
+]
+_TOML_KEYS = [
+    "units", "wire_radius", "net", "path", "radius", "name", "plus", "minus", "instrument",
+    "plus_lead", "minus_lead", "leads", "turns", "element", "current", "coil", "tran", "ac",
+    "resistance", "capacitance", "bandwidth", "route", "spacing", "twist_pitch", "bogus",
+]
+# Once a text is this long (a very long line was made), it gets no further edits.
+_LONG_TEXT = 50_000
+_CHARACTERS = st.one_of(
+    st.sampled_from(list("\x00\t\r\n\x0b\x0c \"'[]{}()=,.+-*;$#\\\u00b5\ufeff")),
+    st.characters(codec="utf-8"),
+)
+
+
+@st.composite
+def _character_edit(draw, text: str) -> str:
+    """Insert, delete or replace one character."""
+    at = draw(st.integers(0, len(text)))
+    how = draw(st.sampled_from(["insert", "delete", "replace"]))
+    char = draw(_CHARACTERS)
+    if how == "insert" or at == len(text):
+        return text[:at] + char + text[at:]
+    return text[:at] + ("" if how == "delete" else char) + text[at + 1:]
+
+
+@st.composite
+def _token_edit(draw, text: str, pool: list[str]) -> str:
+    """Replace one whitespace-separated token by a token from ``pool``, or insert one."""
+    spans = [m.span() for m in _re.finditer(r"[^\s]+", text)]
+    if not spans:
+        return text + draw(st.sampled_from(pool))
+    start, end = draw(st.sampled_from(spans))
+    token = draw(st.sampled_from(pool))
+    if draw(st.booleans()):
+        return text[:start] + token + text[end:]
+    return text[:start] + token + " " + text[start:]
+
+
+@st.composite
+def _line_edit(draw, text: str) -> str:
+    """Delete, duplicate, swap, truncate or blow up one line."""
+    lines = text.split("\n")
+    at = draw(st.integers(0, len(lines) - 1))
+    how = draw(st.sampled_from(["delete", "duplicate", "swap", "truncate", "long", "repeat"]))
+    if how == "delete":
+        del lines[at]
+    elif how == "duplicate":
+        lines.insert(at, lines[at])
+    elif how == "swap":
+        other = draw(st.integers(0, len(lines) - 1))
+        lines[at], lines[other] = lines[other], lines[at]
+    elif how == "truncate":
+        lines[at] = lines[at][:draw(st.integers(0, len(lines[at])))]
+    elif how == "long":
+        # A very long line: a pasted blob, or a value repeated by a runaway script.
+        piece = draw(st.sampled_from(["x", "1", "[0, 0, 0], ", "+"]))
+        lines[at] = lines[at] + " " + piece * (draw(st.sampled_from([1_000, 20_000, 100_000])) // len(piece))
+    else:
+        lines[at:at] = [lines[at]] * draw(st.integers(2, 50))
+    return "\n".join(lines)
+
+
+@st.composite
+def mutated_netlists(draw, text: str) -> str:
+    """``text`` (a valid netlist) after one to four edits of characters, tokens or lines."""
+    for _ in range(draw(st.integers(1, 4))):
+        if len(text) > _LONG_TEXT:
+            break
+        kind = draw(st.sampled_from(["character", "token", "token", "line"]))
+        if kind == "character":
+            text = draw(_character_edit(text))
+        elif kind == "token":
+            text = draw(_token_edit(text, _NETLIST_TOKENS))
+        else:
+            text = draw(_line_edit(text))
+    return text
+
+
+@st.composite
+def _toml_value_edit(draw, text: str) -> str:
+    """Replace one TOML value (a number, a string or a bracketed list) by an odd one."""
+    spans = [m.span() for m in _re.finditer(r'-?\d+(?:\.\d+)?(?:e-?\d+)?|"[^"\n]*"|\[[^\[\]\n]*\]', text)]
+    if not spans:
+        return text
+    start, end = draw(st.sampled_from(spans))
+    return text[:start] + draw(st.sampled_from(_TOML_VALUES)) + text[end:]
+
+
+@st.composite
+def _toml_key_edit(draw, text: str) -> str:
+    """Rename one key, or add a known key with an odd value to one table."""
+    spans = [m.span(1) for m in _re.finditer(r"^\s*([A-Za-z_]+)\s*=", text, _re.MULTILINE)]
+    if spans and draw(st.booleans()):
+        start, end = draw(st.sampled_from(spans))
+        return text[:start] + draw(st.sampled_from(_TOML_KEYS)) + text[end:]
+    lines = text.split("\n")
+    at = draw(st.integers(0, len(lines)))
+    lines.insert(at, f"{draw(st.sampled_from(_TOML_KEYS))} = {draw(st.sampled_from(_TOML_VALUES))}")
+    return "\n".join(lines)
+
+
+@st.composite
+def mutated_sidefiles(draw, text: str) -> str:
+    """``text`` (a valid side-file) after one to four edits of values, keys, characters or lines."""
+    for _ in range(draw(st.integers(1, 4))):
+        if len(text) > _LONG_TEXT:
+            break
+        kind = draw(st.sampled_from(["value", "value", "key", "character", "line"]))
+        if kind == "value":
+            text = draw(_toml_value_edit(text))
+        elif kind == "key":
+            text = draw(_toml_key_edit(text))
+        elif kind == "character":
+            text = draw(_character_edit(text))
+        else:
+            text = draw(_line_edit(text))
+    return text
+
+
+@st.composite
+def include_chains(draw) -> dict[str, str]:
+    """Files of a netlist whose ``.include`` chain is 1 to 300 deep, maybe closing a cycle.
+
+    ``"top.cir"`` includes ``inc0.inc``, which includes ``inc1.inc`` and so on; the last may
+    hold an element, include an earlier file, or include a file that is not there.
+    """
+    depth = draw(st.integers(1, 300))
+    end = draw(st.sampled_from(["element", "cycle", "missing"]))
+    files = {"top.cir": "chain of includes\nR1 in 0 1k\n.include inc0.inc\n.tran 1n 10n\n.end\n"}
+    for level in range(depth - 1):
+        files[f"inc{level}.inc"] = f"* level {level}\n.include inc{level + 1}.inc\n"
+    last = {
+        "element": "RLAST in 0 1k\n",
+        "cycle": f".include inc{draw(st.integers(0, depth - 1))}.inc\n",
+        "missing": ".include not_there.inc\n",
+    }[end]
+    files[f"inc{depth - 1}.inc"] = f"* level {depth - 1}\n{last}"
+    return files

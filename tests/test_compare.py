@@ -55,6 +55,7 @@ def _augmented(probe: ProbeNodes, mutual: float) -> Augmented:
     return Augmented(
         text="", original_text="", analysis="tran", probes=(probe,),
         derivative_nodes={"wire:n1:1": "d_w"}, probe_mutuals={probe.name: {"wire:n1:1": mutual}},
+        loop_mutuals={probe.name: {"wire:n1:1": mutual}},
         inductor_names={}, inductors=0, couplings=0,
     )
 

@@ -397,3 +397,16 @@ class TestAcAnalysis:
         assert f[np.argmax(np.abs(r.probed))] == pytest.approx(expected, rel=0.05)
         # far below resonance the probe reads the node: |probed| = |ideal| within 1 %
         assert abs(r.probed[0]) == pytest.approx(abs(r.ideal[0]), rel=0.01)
+
+
+class TestLocalReading:
+    def test_zero_area_reading_across_a_body_ignores_lead_radius(self, write_case, simulator):
+        """Across a resistor the zero-area reading is I R, whatever radius the probe leads have."""
+        thin_leads = LONG_GROUND_SIDEFILE.replace('instrument = "passive-10x"', 'instrument = "ideal"\nradius = 0.05')
+        netlist, sidefile = write_case(FAST_EDGE_NETLIST, thin_leads)
+        built = build(netlist, sidefile)
+        comparison, _, augmented = simulate_and_compare(built, simulator)
+        (reading,) = comparison.readings
+        # Ohm's law on the load: the current through RL's body times 1 kohm
+        current = np.asarray(augmented.vectors["vx_s_b_rl#branch"])
+        np.testing.assert_allclose(reading.local, current * 1e3, atol=1e-6 * np.max(np.abs(reading.local)))
