@@ -222,7 +222,7 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
     OptionError
         When the output folder is unusable or the scheduler cannot be reached.
     """
-    from augment.report import write_text_atomic
+    from augment.report import plot_setup_comparison, write_text_atomic
 
     checked = load_plan(plan)
     out = Path(out_dir) if out_dir is not None else Path(f"{Path(plan).stem}-batch")
@@ -247,6 +247,11 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
     write_text_atomic(out / "summary.csv", _csv_text(rows, checked))
     for group, members in _setups(rows).items():
         write_text_atomic(out / group / "comparison.csv", _csv_text(members, checked, first="setup"))
+        setups = dict.fromkeys(m["setup"] for m in members if m["status"] != "error")
+        readings = [(setup, out / group / setup / "readings.csv") for setup in setups]
+        readings = [(setup, path) for setup, path in readings if path.exists()]
+        if readings:
+            plot_setup_comparison(readings, out / group / "comparison.png", title=group)
     if junit is not None:
         write_text_atomic(junit, junit_xml(checked, finished))
     print(format_summary(rows), flush=True)

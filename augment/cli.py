@@ -172,12 +172,13 @@ def view(netlist, sidefile, output):
 @click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler to run the cases on.")
 @click.option("--junit", type=click.Path(dir_okay=False), default=None, help="Write a JUnit XML file, one test case per plan case.")
 @click.option("--force", is_flag=True, help="Replace existing case reports.")
-def batch(plan, out_dir, jobs, scheduler, junit, force):
+@click.option("--timeout", type=click.FloatRange(min=1), default=300.0, show_default=True, help="Seconds per simulation.")
+def batch(plan, out_dir, jobs, scheduler, junit, force, timeout):
     """Run every case of a plan; one summary table; exit 1 when a limit is broken."""
     from augment.batch import run_plan
 
     code = run_plan(Path(plan), Path(out_dir) if out_dir else None, jobs=jobs, scheduler=scheduler,
-                    junit=Path(junit) if junit else None, force=force)
+                    junit=Path(junit) if junit else None, force=force, timeout_s=timeout)
     sys.exit(code)
 
 

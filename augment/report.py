@@ -334,3 +334,41 @@ def format_extraction(document: dict) -> str:
             "strongest couplings": ", ".join(f"{other} k={k:+.3g}" for other, k in top) or "-",
         })
     return format_table(rows, ["conductor", "inductor", "length", "segments", "self", "strongest couplings"])
+
+
+def plot_setup_comparison(setups: list[tuple[str, Path]], path: Path, title: str = "") -> Path:
+    """One picture of several probe setups on one netlist: each probe's probed reading overlaid.
+
+    ``setups`` pairs a setup's label with its report's ``readings.csv``; the ideal reading
+    of the first setup is drawn once, in black, as the reference.
+    """
+    import pandas as pd
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.ticker import EngFormatter
+
+    frames = [(label, pd.read_csv(csv)) for label, csv in setups]
+    base = "frequency" if "frequency" in frames[0][1].columns else "time"
+    suffix = ":mag" if base == "frequency" else ""
+    fig = Figure(figsize=(9, 5.5), constrained_layout=True)
+    FigureCanvasAgg(fig)
+    axis = fig.subplots()
+    ideal_drawn = False
+    for label, frame in frames:
+        for column in frame.columns:
+            if column.endswith(":probed" + suffix):
+                probe = column.split(":")[0]
+                if not ideal_drawn:
+                    axis.plot(frame[base], frame[f"{probe}:ideal{suffix}"], color="black", linewidth=2, label="ideal")
+                    ideal_drawn = True
+                axis.plot(frame[base], frame[column], linewidth=1.1, label=f"{label}: {probe}")
+    if base == "frequency":
+        axis.set_xscale("log")
+    axis.xaxis.set_major_formatter(EngFormatter(unit="Hz" if base == "frequency" else "s"))
+    axis.yaxis.set_major_formatter(EngFormatter(unit="V"))
+    axis.grid(True, alpha=0.3)
+    axis.legend(loc="best", fontsize=8)
+    axis.set_title(f"{title}: probed readings of each setup" if title else "probed readings of each setup")
+    axis.set_xlabel(base)
+    _save(fig, path)
+    return path

@@ -44,6 +44,11 @@ _MIN_SEGMENTS_PER_TURN = 8
 # No coordinate or length beyond a kilometre: larger is a typo or a unit slip, and squares of
 # such numbers overflow in the kernels (common practice, no source).
 _MAX_EXTENT_M = 1e3
+# No radius or length below a nanometre: a tiny number would underflow to 0 in metres.
+_MIN_LENGTH_M = 1e-9
+# Pair kernels cost the square of the segment count: 10k segments take seconds, 20k about a
+# minute, and a typo of 1e9 turns would never finish (measured on this project's kernels).
+_MAX_COIL_SEGMENTS = 20_000
 # What each [analysis] line holds after its keyword: (names of the numbers, how many are required).
 _ANALYSIS_FIELDS = {"tran": (("TSTEP", "TSTOP", "TSTART", "TMAX"), 2), "ac": (("points", "FSTART", "FSTOP"), 3)}
 _DEFAULT_SEGMENTS_PER_TURN = 24
@@ -448,9 +453,9 @@ class _Loader:
         number = self.number(value, what, table, index, key, subkey)
         if number <= 0:
             self.fail(f"{what} must be greater than 0, not {value:g} {self.units}", table, index, key, subkey)
-        if number * self.scale > _MAX_EXTENT_M:
-            self.fail(f"{what} is {value:g} {self.units}, more than {_MAX_EXTENT_M:g} m: check the number "
-                      f"and the units", table, index, key, subkey)
+        if not _MIN_LENGTH_M <= number * self.scale <= _MAX_EXTENT_M:
+            self.fail(f"{what} is {value:g} {self.units}, outside {_MIN_LENGTH_M:g} m to {_MAX_EXTENT_M:g} m: "
+                      f"check the number and the units", table, index, key, subkey)
         return number * self.scale
 
     def boolean(self, value: Any, what: str, table: tuple[str, ...], index: int | None) -> bool:
@@ -664,6 +669,11 @@ class _Loader:
         turns = self.number(entry["turns"], f"turns of {what}", table, index, *where_key("turns"))
         if turns < 1:
             self.fail(f"{what} must have at least 1 turn, not {turns:g}", table, index, *where_key("turns"))
+        if turns * self.segments_per_turn > _MAX_COIL_SEGMENTS:
+            self.fail(f"{what} has {turns:g} turns of {self.segments_per_turn} segments, more than the "
+                      f"{_MAX_COIL_SEGMENTS} segments extraction handles in reasonable time; lower "
+                      f"coil_segments_per_turn (at least {_MIN_SEGMENTS_PER_TURN}) or model fewer turns",
+                      table, index, *where_key("turns"))
         wire_radius = self.length(entry.get("wire_radius"), f"wire_radius of {what}", table, index,
                                   *where_key("wire_radius"), default=self.wire_radius)
         direction = axis / np.linalg.norm(axis)

@@ -325,6 +325,33 @@ def _error_block(lines: list[str]) -> str:
     return quoted
 
 
+def _without_incomplete_coupling_notes(lines: list[str]) -> list[str]:
+    """Drop ngspice's note that a coupled set lacks some K lines, unless it is indefinite.
+
+    ngspice says "The Inductive System consisting of <names> has an incomplete set of K
+    couplings, (missing ones are implicitly 0)" over several lines whenever two coupled
+    inductors have no K line between them (exactly perpendicular pieces have none). That
+    is a note, not a failure; "... is not positive definite" stays an error.
+    """
+    kept, block = [], None
+    for line in lines:
+        if block is None and line.lower().startswith("the inductive system"):
+            block = [line]
+            continue
+        if block is not None:
+            block.append(line)
+            said = line.lower()
+            if "incomplete set of k couplings" in said and "not positive definite" not in said:
+                kept.append("some coupled inductors have no K line between them (taken as 0)")
+                block = None
+            elif "positive definite" in said:
+                kept.extend(block)
+                block = None
+            continue
+        kept.append(line)
+    return kept + (block or [])
+
+
 def _failure_message(name: str, quoted: str, warnings: list[str]) -> str:
     message = f'ngspice failed on {name}: "{quoted}"'
     nodes = dict.fromkeys(_SINGULAR_NODE.findall(" ".join(warnings)))
@@ -405,6 +432,7 @@ class _Worker:
         ran = loaded + self.take_lines()
         said = [content for stream, content in ran if stream == "stderr"]
         said += [c for s, c in ran if s == "stdout" and c.lower().startswith("warning")]
+        said = _without_incomplete_coupling_notes(said)
         errors = _error_block(said)
         plots = [plot for plot in self._ngspice.plot_names if plot != "const"]
         if errors:

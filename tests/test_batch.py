@@ -394,6 +394,11 @@ class TestRunPlan:
         # The wide ground loop encloses more flux than leads side by side (Faraday's law).
         assert float(comparison[1]["max_abs_error"]) > float(comparison[0]["max_abs_error"])
 
+    def test_comparison_picture_of_setups(self, compare_run):
+        """A case with several side-files gets one PNG with the probed readings overlaid."""
+        picture = compare_run["out"] / "setups" / "comparison.png"
+        assert picture.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
     def test_refuses_non_empty_folder_without_force(self, tmp_path):
         """An existing non-empty output folder is refused before anything runs."""
         plan = _scenario(tmp_path / "in")

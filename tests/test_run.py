@@ -29,6 +29,8 @@ def _grover_parallel(l1: float, l2: float, offset: float, d: float) -> float:
     """
 
     def f(x):
+        if d == 0:  # collinear: the d -> 0 limit, whose ln(1/d) terms cancel in the sum
+            return abs(x) * math.log(abs(x)) - abs(x) if x else 0.0
         return x * math.asinh(x / d) - math.hypot(x, d)
 
     return MU0 / (4 * math.pi) * (f(offset + l2) - f(offset + l2 - l1) - f(offset) + f(offset - l1))
