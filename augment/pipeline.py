@@ -71,11 +71,13 @@ def simulate_and_compare(built: Built, simulator):
     from augment.compare import compare
 
     name = Path(built.netlist.path).name
+    # relative .include and .lib paths resolve from the netlist's own folder
+    folder = Path(built.netlist.path).resolve().parent
     t0 = time.perf_counter()
-    ideal = simulator.run(built.augmented.original_text, name=name)
+    ideal = simulator.run(built.augmented.original_text, name=name, directory=folder)
     built.timings_s["simulate_ideal"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    augmented = simulator.run(built.augmented.text, name=f"{name} (augmented)")
+    augmented = simulator.run(built.augmented.text, name=f"{name} (augmented)", directory=folder)
     built.timings_s["simulate_augmented"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     comparison = compare(built.augmented, ideal.vectors, augmented.vectors)

@@ -136,6 +136,7 @@ def _save(figure: Any, out_path: Path) -> Path:
     out_path.parent.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(prefix=f".{out_path.name}.", suffix=".png", dir=out_path.parent)
     os.close(handle)
+    os.chmod(temporary, 0o666 & ~_umask())
     try:
         figure.savefig(temporary, format="png")
         os.replace(temporary, out_path)
@@ -145,10 +146,19 @@ def _save(figure: Any, out_path: Path) -> Path:
     return out_path
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def _atomic_folder(out_dir: Path):
     """A fresh temporary folder beside ``out_dir``; ``_commit_folder`` moves it into place."""
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    return Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    # mkdtemp makes it private; the report should get the modes any new folder gets
+    os.chmod(tmp, 0o777 & ~_umask())
+    return tmp
 
 
 def _commit_folder(tmp: Path, out_dir: Path) -> None:
@@ -282,6 +292,8 @@ def write_text_atomic(path: Path, text: str) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
+        # mkstemp makes it private; the output should get the modes any new file gets
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, "w") as handle:
             handle.write(text)
         os.replace(tmp, path)

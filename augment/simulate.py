@@ -121,7 +121,7 @@ class Simulator:
     def __exit__(self, *exc_info) -> None:
         self.close()
 
-    def run(self, netlist_text: str, name: str = "<netlist>") -> SimResult:
+    def run(self, netlist_text: str, name: str = "<netlist>", directory: str | os.PathLike | None = None) -> SimResult:
         """Simulate a netlist and return its vectors.
 
         Parameters
@@ -131,6 +131,9 @@ class Simulator:
             ``.dc``, ``.op``) inside. ``.control ... .endc`` blocks are removed first.
         name : str
             What the netlist is called in messages, usually its file name.
+        directory : path, optional
+            Where ngspice runs, so that relative ``.include`` and ``.lib`` paths resolve as
+            they do for the netlist's own file (default: this process's working folder).
 
         Returns
         -------
@@ -147,10 +150,11 @@ class Simulator:
         # ngspice takes a deck without .end as unfinished and loads nothing.
         if not _END.search(text):
             text += ".end\n"
-        reply = self._request(("run", text), name)
+        where = os.fspath(directory) if directory is not None else os.getcwd()
+        reply = self._request(("run", text, where), name)
         if reply[0] == "stale":
             self._stop()
-            reply = self._request(("run", text), name)
+            reply = self._request(("run", text, where), name)
         if reply[0] == "fail":
             _, quoted, warnings, recoverable = reply
             if not recoverable:
@@ -481,6 +485,7 @@ def _worker_main(requests: Connection, replies: Connection) -> None:
             os.kill(os.getpid(), request[1])
             continue
         try:
+            os.chdir(request[2])
             reply = worker.run(request[1])
         except Exception as error:  # noqa: BLE001 - reported to the parent as a failure
             reply = ("fail", f"{type(error).__name__}: {error}", [], False)

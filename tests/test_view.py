@@ -120,3 +120,19 @@ class TestDrawGeometry:
         netlist = parse_netlist(cir)
         graph = build_graph(load_sidefile(SCENARIOS / f"{name}.toml", netlist), netlist)
         assert png_size(draw_geometry(graph, netlist, tmp_path / f"{name}.png", size_px=(600, 450))) == (600, 450)
+
+
+EXAMPLES = Path(__file__).resolve().parent.parent / "netlists"
+
+
+class TestDrawExamples:
+    @pytest.mark.parametrize("sidefile", sorted(p.relative_to(EXAMPLES).as_posix() for p in EXAMPLES.glob("*/*.toml")
+                                                if p.name != "plan.toml"))
+    def test_every_example_is_drawn(self, tmp_path, sidefile):
+        """Every example side-file under netlists/ gives a picture (with its folder's netlist)."""
+        folder = (EXAMPLES / sidefile).parent
+        (cir,) = folder.glob("*.cir")
+        netlist = parse_netlist(cir)
+        graph = build_graph(load_sidefile(EXAMPLES / sidefile, netlist), netlist)
+        out = draw_geometry(graph, netlist, tmp_path / "example.png", size_px=(500, 400))
+        assert png_size(out) == (500, 400)
