@@ -331,6 +331,9 @@ def extraction_document(built) -> dict:
     return {"netlist": str(built.netlist.path), "conductors": conductors, "couplings": couplings}
 
 
+MATRIX_MAX = 12  # conductors up to which `augment extract` also prints the k matrix
+
+
 def format_extraction(document: dict) -> str:
     """Readable extraction table: each conductor with its strongest couplings."""
     strongest: dict[str, list] = {}
@@ -345,7 +348,17 @@ def format_extraction(document: dict) -> str:
             "segments": str(c["segments"]), "self": engineering(c["henry"], "H"),
             "strongest couplings": ", ".join(f"{other} k={k:+.3g}" for other, k in top) or "-",
         })
-    return format_table(rows, ["conductor", "inductor", "length", "segments", "self", "strongest couplings"])
+    table = format_table(rows, ["conductor", "inductor", "length", "segments", "self", "strongest couplings"])
+    ids = [c["id"] for c in document["conductors"]]
+    if not 1 < len(ids) <= MATRIX_MAX:
+        return table
+    k = {(c["a"], c["b"]): c["k"] for c in document["couplings"]}
+    matrix = [
+        {"": f"[{i + 1}] {a}", **{f"[{j + 1}]": ("1" if a == b else f"{k.get((a, b), k.get((b, a), 0.0)):+.3g}")
+                                 for j, b in enumerate(ids)}}
+        for i, a in enumerate(ids)
+    ]
+    return table + "\n\ncoupling coefficients k:\n" + format_table(matrix, ["", *(f"[{j + 1}]" for j in range(len(ids)))])
 
 
 def plot_setup_comparison(setups: list[tuple[str, Path]], path: Path, title: str = "") -> Path:
