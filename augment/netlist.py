@@ -743,20 +743,27 @@ def _describe(error, code: _Code, column: int) -> str:
         if char == '"':
             return "unterminated string"
         if column == len(code.text) - len(code.text.lstrip()) + 1:
-            return f"a statement must start with an element name or a dot keyword, not '{char}'"
-        return f"unexpected '{char}'"
+            return f"a statement must start with an element name or a dot keyword, not {_shown(char)}"
+        return f"unexpected {_shown(char)}"
     if isinstance(error, UnexpectedToken):
         token = error.token
         if column == len(code.text) - len(code.text.lstrip()) + 1:
-            return f"a statement must start with an element name or a dot keyword, not '{token}'"
+            return f"a statement must start with an element name or a dot keyword, not {_shown(str(token))}"
         if token.type == "RPAR":
             return "unbalanced parentheses: ')' without '('"
         if token.type in ("_NL", "$END") and "RPAR" in error.expected:
             return "unbalanced parentheses: '(' not closed"
         if token.type == "EQUAL":
             return "'=' without a parameter name before it"
-        return f"unexpected '{token}'"
+        if token.type in ("_NL", "$END"):
+            return "the statement ends too early"
+        return f"unexpected {_shown(str(token))}"
     return "syntax error"
+
+
+def _shown(text: str) -> str:
+    """``text`` quoted for a one-line message; control characters are escaped."""
+    return f"'{text}'" if text.isprintable() else repr(text)
 
 
 def _token_location(codes: list[_Code], token) -> Location:

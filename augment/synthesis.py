@@ -179,12 +179,8 @@ def _rewired_elements(
             body_inner[key] = inner
             nodes[0] = inner
         if tuple(nodes) != element.nodes:
-            changed[key] = _with_nodes(element, tuple(nodes))
+            changed[key] = replace(element, nodes=tuple(nodes), raw=None)
     return changed, body_inner
-
-
-def _with_nodes(element: Element, nodes: tuple[str, ...]) -> Element:
-    return replace(element, nodes=nodes, raw=None)
 
 
 def _kept_couplings(
@@ -221,212 +217,242 @@ def synthesize(
     graph : the conductor graph of the side-file
     inductance : lumped self and mutual inductances of every conductor (and zero-area paths)
     options : coupling mode, coupling threshold, analysis override
+    sidefile_name : named in the header of the added lines
     """
-    notes: list[str] = []
-    analysis = choose_analysis(netlist, graph, options.analysis)
-    for directive in netlist.statements:
-        if getattr(directive, "kind", None) == "control":
-            notes.append(
-                f"{directive.location}: .control block left out of the simulation; "
-                "the tool issues the analysis itself"
-            )
+    return _Synthesis(netlist, graph, inductance, options).run(sidefile_name)
 
-    coils = {c.element.lower() for c in graph.conductors if c.kind == "coil"}
-    removed_k: list[str] = []
-    for element in netlist.elements:
-        if element.kind == "K" and any(f.lower() in coils for f in element.fields[:2]):
-            removed_k.append(element.key)
-            notes.append(
-                f"{element.location}: {element.name} couples a coil the side-file realises; "
-                "replaced by the computed couplings"
-            )
 
-    book = _NameBook(netlist.names)
-    node_of = _node_names(netlist, graph, book)
-    changed, body_inner = _rewired_elements(netlist, graph, node_of, book)
+class _Synthesis:
+    """The added lines of one augmented netlist, written stage by stage into ``lines``."""
 
-    ids = list(inductance.ids)
-    index = {cid: i for i, cid in enumerate(ids)}
-    conductors = {c.id: c for c in graph.conductors}
-    carrying = [c for c in graph.conductors if c.kind in CURRENT_CARRYING]
-    probe_conductors = [c for c in graph.conductors if c.kind == "probe"]
-    henry = inductance.henry
+    def __init__(self, netlist: Netlist, graph: ConductorGraph, inductance: InductanceMatrix,
+                 options: SynthesisOptions):
+        self.netlist, self.graph, self.options = netlist, graph, options
+        self.henry = inductance.henry
+        self.inductance = inductance
+        self.index = {cid: i for i, cid in enumerate(inductance.ids)}
+        self.conductors = {c.id: c for c in graph.conductors}
+        self.carrying = [c for c in graph.conductors if c.kind in CURRENT_CARRYING]
+        self.book = _NameBook(netlist.names)
+        self.node_of = _node_names(netlist, graph, self.book)
+        self.changed, self.body_inner = _rewired_elements(netlist, graph, self.node_of, self.book)
+        self.lines: list[str] = []
+        self.notes: list[str] = []
+        self.inductor_of: dict[str, str] = {}  # conductor id -> inductor name
+        self.sense_of: dict[str, str] = {}  # conductor id -> its 0 V current sense
+        self.probe_inductors: dict[str, str] = {}  # probe name -> loop inductor
+        self.derivative_nodes: dict[str, str] = {}
+        self.inductors = 0
+        self.couplings = 0
 
-    lines: list[str] = [
-        "*",
-        f"* ---- added from side-file {sidefile_name or '(unnamed)'} ----",
-        f"* {len(carrying)} current-carrying conductors, {len(probe_conductors)} probe loops;",
-        "* ids in the comments are the conductor ids of 'augment extract'.",
-    ]
-    inductor_count = 0
-    inductor_of: dict[str, str] = {}
-    sense_of: dict[str, str] = {}
+    def run(self, sidefile_name: str) -> Augmented:
+        analysis = choose_analysis(self.netlist, self.graph, self.options.analysis)
+        removed = self.user_couplings_of_coils()
+        probe_count = sum(c.kind == "probe" for c in self.graph.conductors)
+        self.lines += [
+            "*",
+            f"* ---- added from side-file {sidefile_name or '(unnamed)'} ----",
+            f"* {len(self.carrying)} current-carrying conductors, {probe_count} probe loops;",
+            "* ids in the comments are the conductor ids of 'augment extract'.",
+        ]
+        for c in self.carrying:
+            self.series_inductor(c)
+        self.claim_probe_inductors()
+        self.mutual_couplings()
+        if self.graph.probes:
+            self.derivative_sensors()
+        probes, probe_mutuals, loop_mutuals = [], {}, {}
+        for setup in self.graph.probes:
+            probes.append(self.probe(setup))
+            leads, path = self.mutuals_of(setup)
+            probe_mutuals[setup.name] = leads
+            loop_mutuals[setup.name] = {cid: leads[cid] - path[cid] for cid in leads}
+        self.lines.append(
+            f"* ---- end of added lines: {self.inductors} inductors, {self.couplings} couplings ----"
+        )
+        augmented = self.netlist.replace(changed=self.changed, removed=removed)
+        return Augmented(
+            text=_simulation_text(augmented, analysis, self.lines),
+            original_text=_simulation_text(self.netlist, analysis, []),
+            analysis=analysis.split()[0].lstrip(".").lower(),
+            probes=tuple(probes),
+            derivative_nodes=self.derivative_nodes,
+            probe_mutuals=probe_mutuals,
+            loop_mutuals=loop_mutuals,
+            inductor_names={
+                **self.inductor_of,
+                **{f"probe:{name}": inductor for name, inductor in self.probe_inductors.items()},
+            },
+            inductors=self.inductors,
+            couplings=self.couplings,
+            notes=(*self.control_block_notes(), *self.notes),
+        )
 
-    # series inductors of the current-carrying conductors, each with a 0 V sense source
-    for c in carrying:
-        i = index[c.id]
-        if c.kind == "coil":
-            element = netlist.element(c.element)
-            base = changed.get(element.key, element)
-            sense_node = book.claim(f"{element.name}_s")
-            sense = book.claim(f"VX_S_{element.name}")
-            nodes = (sense_node, *base.nodes[1:])
-            changed[element.key] = replace(
-                base, nodes=nodes, value=_value(henry[i, i]), fields=(_value(henry[i, i]),), raw=None
-            )
-            lines.append(f"{sense} {base.nodes[0]} {sense_node} 0 $ {c.id} current sense")
-            inductor_of[c.id] = element.name
-            sense_of[c.id] = sense
-            stated = netlist.value_of(element.name)
-            if stated and abs(henry[i, i] - stated) > 0.1 * stated:
-                notes.append(
-                    f"{element.location}: {element.name} is {stated:.4g} H in the netlist but its "
-                    f"[[coil]] geometry gives {henry[i, i]:.4g} H; the computed value is used"
+    def control_block_notes(self) -> list[str]:
+        return [
+            f"{statement.location}: .control block left out of the simulation; the tool issues the analysis itself"
+            for statement in self.netlist.statements
+            if getattr(statement, "kind", None) == "control"
+        ]
+
+    def user_couplings_of_coils(self) -> list[str]:
+        """Keys of the user's K lines that name a coil the side-file realises (replaced)."""
+        coils = {c.element.lower() for c in self.graph.conductors if c.kind == "coil"}
+        removed = []
+        for element in self.netlist.elements:
+            if element.kind == "K" and any(f.lower() in coils for f in element.fields[:2]):
+                removed.append(element.key)
+                self.notes.append(
+                    f"{element.location}: {element.name} couples a coil the side-file realises; "
+                    "replaced by the computed couplings"
                 )
-            inductor_count += 1
-            continue
+        return removed
+
+    def series_inductor(self, c) -> None:
+        """One inductor for a current-carrying conductor, with a 0 V source sensing its current."""
+        book, henry_self = self.book, self.henry[self.index[c.id], self.index[c.id]]
+        self.inductors += 1
+        if c.kind == "coil":
+            self.coil_element(c, henry_self)
+            return
         name = book.claim(_inductor_name(c.id))
-        sense = book.claim("VX_S" + name[2:])
-        mid = book.claim(name + "_s")
+        sense, mid = book.claim("VX_S" + name[2:]), book.claim(name + "_s")
         if c.kind == "wire":
-            start, end = node_of[c.start], node_of[c.end]
+            start, end = self.node_of[c.start], self.node_of[c.end]
         elif c.kind == "body":
-            start, end = node_of[c.start], body_inner[c.element.lower()]
+            start, end = self.node_of[c.start], self.body_inner[c.element.lower()]
         else:  # aggressor: an imposed current through its own inductor
-            aggressor = next(a for a in graph.aggressors if a.conductor == c.id)
-            start = book.claim(f"agg_{aggressor.name}")
-            end = "0"
-            lines.append(
+            aggressor = next(a for a in self.graph.aggressors if a.conductor == c.id)
+            start, end = book.claim(f"agg_{aggressor.name}"), "0"
+            self.lines.append(
                 f"{book.claim('IX_A_' + aggressor.name)} 0 {start} {aggressor.current} $ {c.id} imposed current"
             )
-        lines.append(f"{sense} {start} {mid} 0 $ {c.id} current sense")
-        lines.append(f"{name} {mid} {end} {_value(henry[i, i])} $ {c.id} partial L, {c.length_m * 1e3:.4g} mm")
-        inductor_of[c.id] = name
-        sense_of[c.id] = sense
-        inductor_count += 1
+        self.lines.append(f"{sense} {start} {mid} 0 $ {c.id} current sense")
+        self.lines.append(f"{name} {mid} {end} {_value(henry_self)} $ {c.id} partial L, {c.length_m * 1e3:.4g} mm")
+        self.inductor_of[c.id], self.sense_of[c.id] = name, sense
 
-    # K couplings among current-carrying conductors (and probe loops when coupled fully)
-    coupled = [c.id for c in carrying]
-    full = options.coupling == "full"
-    probe_inductors: dict[str, str] = {}
-    for setup in graph.probes:
-        c = conductors[setup.conductor]
-        if math.isinf(setup.instrument.resistance) and setup.instrument.capacitance == 0:
-            continue  # an ideal instrument draws no current: its own inductance does nothing
-        name = book.claim(_inductor_name(c.id))
-        probe_inductors[setup.name] = name
-        if full:
-            coupled.append(c.id)
-    sub = np.array([[henry[index[a], index[b]] for b in coupled] for a in coupled], dtype=float)
-    coupling_count = 0
-    if len(coupled) > 1:
+    def coil_element(self, c, henry_self: float) -> None:
+        """The netlist inductor a [[coil]] realises takes the computed value."""
+        element = self.netlist.element(c.element)
+        base = self.changed.get(element.key, element)
+        sense_node = self.book.claim(f"{element.name}_s")
+        sense = self.book.claim(f"VX_S_{element.name}")
+        self.changed[element.key] = replace(
+            base, nodes=(sense_node, *base.nodes[1:]), value=_value(henry_self), fields=(_value(henry_self),), raw=None
+        )
+        self.lines.append(f"{sense} {base.nodes[0]} {sense_node} 0 $ {c.id} current sense")
+        self.inductor_of[c.id], self.sense_of[c.id] = element.name, sense
+        stated = self.netlist.value_of(element.name)
+        if stated and abs(henry_self - stated) > 0.1 * stated:
+            self.notes.append(
+                f"{element.location}: {element.name} is {stated:.4g} H in the netlist but its "
+                f"[[coil]] geometry gives {henry_self:.4g} H; the computed value is used"
+            )
+
+    def claim_probe_inductors(self) -> None:
+        for setup in self.graph.probes:
+            if math.isinf(setup.instrument.resistance) and setup.instrument.capacitance == 0:
+                continue  # an ideal instrument draws no current: its own inductance does nothing
+            self.probe_inductors[setup.name] = self.book.claim(_inductor_name(setup.conductor))
+
+    def mutual_couplings(self) -> None:
+        """K lines among current-carrying conductors (and probe loops when coupled fully)."""
+        coupled = [c.id for c in self.carrying]
+        if self.options.coupling == "full":
+            coupled += [f"probe:{name}" for name in self.probe_inductors]
+        if len(coupled) < 2:
+            return
+        rows = [self.index[cid] for cid in coupled]
+        sub = np.asarray(self.henry, dtype=float)[np.ix_(rows, rows)]
         check_positive_definite(sub, coupled)
-        kept, forced = _kept_couplings(coupled, sub, options.kmin)
+        kept, forced = _kept_couplings(coupled, sub, self.options.kmin)
         if forced:
-            notes.append(
-                f"couplings below |k| = {options.kmin:g} kept: dropping them would leave the "
+            self.notes.append(
+                f"couplings below |k| = {self.options.kmin:g} kept: dropping them would leave the "
                 "inductance matrix indefinite, which ngspice refuses"
             )
         if kept:
-            lines.append("* mutual couplings (coefficient of coupling from the lumped partial inductances)")
+            self.lines.append("* mutual couplings (coefficient of coupling from the lumped partial inductances)")
+        names = {**self.inductor_of, **{f"probe:{n}": i for n, i in self.probe_inductors.items()}}
         for n, (i, j, kij) in enumerate(kept, start=1):
             a, b = coupled[i], coupled[j]
-            la = inductor_of.get(a) or probe_inductors[a.partition(":")[2]]
-            lb = inductor_of.get(b) or probe_inductors[b.partition(":")[2]]
-            lines.append(f"{book.claim(f'KX_{n}')} {la} {lb} {kij:.9g} $ {a} ~ {b}")
-            coupling_count += 1
+            self.lines.append(f"{self.book.claim(f'KX_{n}')} {names[a]} {names[b]} {kij:.9g} $ {a} ~ {b}")
+        self.couplings = len(kept)
 
-    # derivative sensors: node voltage = DERIVATIVE_HENRY * dI/dt of each current-carrying conductor
-    derivative_nodes: dict[str, str] = {}
-    if graph.probes and carrying:
-        lines.append(f"* dI/dt sensors: V(node) = {DERIVATIVE_HENRY:g} H * dI/dt, no load on the circuit")
-    for c in carrying if graph.probes else ():
-        node = book.claim(f"d_{inductor_of[c.id]}")
-        lines.append(f"{book.claim('FX_D_' + inductor_of[c.id])} 0 {node} {sense_of[c.id]} 1 $ {c.id}")
-        lines.append(f"{book.claim('LX_D_' + inductor_of[c.id])} {node} 0 {_value(DERIVATIVE_HENRY)} $ {c.id}")
-        derivative_nodes[c.id] = node
+    def derivative_sensors(self) -> None:
+        """Node voltage DERIVATIVE_HENRY * dI/dt of each current-carrying conductor, no load."""
+        if self.carrying:
+            self.lines.append(f"* dI/dt sensors: V(node) = {DERIVATIVE_HENRY:g} H * dI/dt, no load on the circuit")
+        for c in self.carrying:
+            inductor = self.inductor_of[c.id]
+            node = self.book.claim(f"d_{inductor}")
+            self.lines.append(f"{self.book.claim('FX_D_' + inductor)} 0 {node} {self.sense_of[c.id]} 1 $ {c.id}")
+            self.lines.append(f"{self.book.claim('LX_D_' + inductor)} {node} 0 {_value(DERIVATIVE_HENRY)} $ {c.id}")
+            self.derivative_nodes[c.id] = node
 
-    probes: list[ProbeNodes] = []
-    probe_mutuals: dict[str, dict[str, float]] = {}
-    loop_mutuals: dict[str, dict[str, float]] = {}
-    for setup in graph.probes:
-        c = conductors[setup.conductor]
-        p = index[c.id]
-        plus, minus = node_of[setup.plus], node_of[setup.minus]
-        mutuals = {cc.id: float(henry[p, index[cc.id]]) for cc in carrying}
-        probe_mutuals[setup.name] = mutuals
-        local = inductance.reference_mutual[inductance.reference_ids.index(f"local:{setup.name}")]
-        local_mutuals = {cc.id: float(local[index[cc.id]]) for cc in carrying}
-        loop_mutuals[setup.name] = {cid: mutuals[cid] - local_mutuals[cid] for cid in mutuals}
-        instrument = setup.instrument
-        lines.append(f"* probe {setup.name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
+    def mutuals_of(self, setup) -> tuple[dict[str, float], dict[str, float]]:
+        """Partial mutuals of a probe's leads, and of its straight zero-area path, with each
+        current-carrying conductor."""
+        leads = self.henry[self.index[setup.conductor]]
+        path = self.inductance.reference_mutual[self.inductance.reference_ids.index(f"local:{setup.name}")]
+        return (
+            {c.id: float(leads[self.index[c.id]]) for c in self.carrying},
+            {c.id: float(path[self.index[c.id]]) for c in self.carrying},
+        )
 
+    def probe(self, setup) -> ProbeNodes:
+        """Zero-area reference, lead loop, EMF and instrument model of one probe."""
+        book, c, instrument = self.book, self.conductors[setup.conductor], setup.instrument
+        plus, minus = self.node_of[setup.plus], self.node_of[setup.minus]
+        p = self.index[c.id]
+        mutuals, local_mutuals = self.mutuals_of(setup)
+        self.lines.append(f"* probe {setup.name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
         local_node = book.claim(f"r_{setup.name}_local")
-        lines.append(
-            f"{book.claim('BX_L_' + setup.name)} {local_node} 0 V = {_emf_expression(plus, minus, local_mutuals, derivative_nodes)}"
-            f" $ local:{setup.name} zero-area path"
+        self.lines.append(
+            f"{book.claim('BX_L_' + setup.name)} {local_node} 0 V = "
+            f"{_emf_expression(plus, minus, local_mutuals, self.derivative_nodes)} $ local:{setup.name} zero-area path"
         )
         probed_node = book.claim(f"r_{setup.name}_probed")
         tip = book.claim(f"r_{setup.name}_tip") if instrument.bandwidth else probed_node
-        if setup.name not in probe_inductors:
+        if setup.name not in self.probe_inductors:
             # ideal instrument: open circuit sensed by a controlled source
-            lines.append(
-                f"{book.claim('BX_P_' + setup.name)} {tip} 0 V = {_emf_expression(plus, minus, mutuals, derivative_nodes)}"
-                f" $ {c.id} ideal instrument"
+            self.lines.append(
+                f"{book.claim('BX_P_' + setup.name)} {tip} 0 V = "
+                f"{_emf_expression(plus, minus, mutuals, self.derivative_nodes)} $ {c.id} ideal instrument"
             )
         else:
             a = book.claim(f"p_{setup.name}_a")
-            lines.append(f"{probe_inductors[setup.name]} {plus} {a} {_value(henry[p, p])} $ {c.id} loop self inductance")
-            if full:
+            self.lines.append(
+                f"{self.probe_inductors[setup.name]} {plus} {a} {_value(self.henry[p, p])} $ {c.id} loop self inductance"
+            )
+            self.inductors += 1
+            if self.options.coupling == "full":
                 inside = a  # the K lines carry the EMF
             else:
                 inside = book.claim(f"p_{setup.name}_b")
                 emf = " + ".join(
-                    f"({_value(-m / DERIVATIVE_HENRY)})*v({derivative_nodes[cid]})"
+                    f"({_value(-m / DERIVATIVE_HENRY)})*v({self.derivative_nodes[cid]})"
                     for cid, m in mutuals.items()
                     if m != 0.0
                 ) or "0"
-                lines.append(f"{book.claim('BX_E_' + setup.name)} {inside} {a} V = {emf} $ {c.id} induced EMF, one way")
-            inductor_count += 1
-            lines.extend(_instrument_lines(setup.name, instrument, inside, minus, book, c.id))
-            lines.append(f"{book.claim('EX_T_' + setup.name)} {tip} 0 {inside} {minus} 1 $ {c.id} reading at the tip")
+                self.lines.append(f"{book.claim('BX_E_' + setup.name)} {inside} {a} V = {emf} $ {c.id} induced EMF, one way")
+            self.lines.extend(_instrument_lines(setup.name, instrument, inside, minus, book, c.id))
+            self.lines.append(f"{book.claim('EX_T_' + setup.name)} {tip} 0 {inside} {minus} 1 $ {c.id} reading at the tip")
         if instrument.bandwidth:
             # single-pole limit of the instrument, after the tip
-            r_name, c_name = book.claim("RX_W_" + setup.name), book.claim("CX_W_" + setup.name)
             cap = 1.0 / (2 * math.pi * 1e3 * instrument.bandwidth)
-            lines.append(f"{r_name} {tip} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
-            lines.append(f"{c_name} {probed_node} 0 {_value(cap)} $ {c.id}")
-        probes.append(
-            ProbeNodes(
-                name=setup.name,
-                plus_net=graph.junctions[setup.plus].net,
-                minus_net=graph.junctions[setup.minus].net,
-                probed_node=probed_node,
-                local_node=local_node,
-                instrument=instrument,
-                conductor=c.id,
-                lead_length_m=c.length_m,
-            )
+            self.lines.append(f"{book.claim('RX_W_' + setup.name)} {tip} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
+            self.lines.append(f"{book.claim('CX_W_' + setup.name)} {probed_node} 0 {_value(cap)} $ {c.id}")
+        return ProbeNodes(
+            name=setup.name,
+            plus_net=self.graph.junctions[setup.plus].net,
+            minus_net=self.graph.junctions[setup.minus].net,
+            probed_node=probed_node,
+            local_node=local_node,
+            instrument=instrument,
+            conductor=c.id,
+            lead_length_m=c.length_m,
         )
-    lines.append(f"* ---- end of added lines: {inductor_count} inductors, {coupling_count} couplings ----")
-
-    augmented = netlist.replace(changed=changed, removed=removed_k)
-    return Augmented(
-        text=_simulation_text(augmented, analysis, lines),
-        original_text=_simulation_text(netlist, analysis, []),
-        analysis=analysis.split()[0].lstrip(".").lower(),
-        probes=tuple(probes),
-        derivative_nodes=derivative_nodes,
-        probe_mutuals=probe_mutuals,
-        loop_mutuals=loop_mutuals,
-        inductor_names={
-            **inductor_of,
-            **{f"probe:{name}": inductor for name, inductor in probe_inductors.items()},
-        },
-        inductors=inductor_count,
-        couplings=coupling_count,
-        notes=tuple(notes),
-    )
 
 
 def _emf_expression(

@@ -2,7 +2,7 @@
 
 Throughput: ``lumped_inductance`` on a helix of ``n`` segments split into 10 conductors
 (``n (n - 1) / 2`` segment pairs). Every run is a fresh interpreter, so its peak resident
-memory (``ru_maxrss``, the interpreter and numpy included) belongs to that run alone and no
+memory (VmHWM, the interpreter and numpy included) belongs to that run alone and no
 run inherits another's caches or heap. In the same process, after the kernel, the in-run
 reference times a plain numpy elementwise expression of similar arithmetic per pair
 (4 sqrt, 4 log, 2 atan2, about 120 flops) over ``min(pairs, 2,000,000)`` pairs and scales
@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import statistics
 import subprocess
 import sys
@@ -71,10 +70,22 @@ def _one_run(n: int) -> dict:
     start = time.perf_counter()
     lumped_inductance(*geometry)
     kernel_s = time.perf_counter() - start
-    # Linux reports ru_maxrss in KiB.
-    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024 / 1e6
+    peak_mb = _peak_resident_bytes() / 1e6
     reference_s = _numpy_reference(min(pairs, _REFERENCE_MAX_PAIRS)) * pairs / min(pairs, _REFERENCE_MAX_PAIRS)
     return {"kernel_s": kernel_s, "peak_rss_mb": peak_mb, "numpy_reference_s": reference_s}
+
+
+def _peak_resident_bytes() -> int:
+    """This process's peak resident set (VmHWM).
+
+    Not ``ru_maxrss``: Linux keeps that across ``execve``, so a child started by a big
+    parent reports the parent's size.
+    """
+    with open("/proc/self/status", encoding="ascii") as status:
+        for line in status:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) * 1024
+    raise RuntimeError("no VmHWM in /proc/self/status")
 
 
 def run(sizes=(1000, 5000, 20000), repeats: int = 5, accuracy_pairs: int = 1000) -> list[dict]:

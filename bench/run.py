@@ -137,7 +137,7 @@ def _kernel(settings: Settings) -> list[Figure]:
             _figure("pair kernel", item, "peak resident memory", "MB", runs["peak_rss_mb"],
                    f"< {bench_inductance.MEMORY_LIMIT_MB:g} MB" if at_20000 else "",
                    statistics.median(runs["peak_rss_mb"]) < bench_inductance.MEMORY_LIMIT_MB if at_20000 else None,
-                   "ru_maxrss of the run's own process, interpreter and numpy included"),
+                   "peak resident set (VmHWM) of the run's own process, interpreter and numpy included"),
             _figure("pair kernel", item, "numpy reference, same pair count", "s", runs["numpy_reference_s"],
                    note="plain elementwise expression, ~120 flops, 4 log, 2 atan2 per pair"),
             _figure("pair kernel", item, "fraction of numpy speed", "x", runs["fraction_of_numpy_speed"],

@@ -33,6 +33,25 @@ CASES = tomllib.loads((BAD / "cases.toml").read_text())["case"]
 BASE_NETLIST = (BAD / "base.cir").read_text()
 BASE_SIDEFILE = (BAD / "base.toml").read_text()
 BASE_PARSED = parse_netlist_text(BASE_NETLIST, "base.cir", BAD)
+# The base side-file with an aggressor coil, a twisted-pair probe and an [analysis] table, so
+# that mutations reach the helix, twisted-pair and analysis checks too.
+RICH_SIDEFILE = BASE_SIDEFILE + """
+[[aggressor]]
+name = "bus"
+current = "PULSE(0 1 0 1n 1n 5n 10n)"
+coil = { center = [5, 40, 0], axis = [0, 0, 1], radius = 5, length = 10, turns = 5 }
+
+[[probe]]
+name = "twisted"
+plus = "R1.1"
+minus = "R1.2"
+instrument = "ideal"
+leads = { route = [[5, 0, 0], [5, 0, 50]], spacing = 1.0, twist_pitch = 8 }
+
+[analysis]
+tran = "0.5n 60n"
+"""
+SIDEFILES = st.sampled_from([BASE_SIDEFILE, RICH_SIDEFILE]).flatmap(mutated_sidefiles)
 
 # Per fuzz example, parse to synthesis of a netlist this small takes milliseconds; ten
 # seconds means something went quadratic or hung (common practice, no source).
@@ -111,6 +130,7 @@ class TestBadInputCorpus:
 class TestParseNetlistTextFuzz:
     """parse_netlist_text and parse_netlist on mutated netlists and deep include chains."""
 
+    @settings(max_examples=300)
     @given(mutated_netlists(BASE_NETLIST))
     def test_mutated_netlist_parses_or_fails_cleanly(self, text):
         """A mutated netlist parses, or raises an AugmentError naming fuzz.cir, in bounded time."""
@@ -142,7 +162,8 @@ class TestParseNetlistTextFuzz:
 class TestLoadSidefileTextFuzz:
     """load_sidefile_text on mutated side-files."""
 
-    @given(mutated_sidefiles(BASE_SIDEFILE))
+    @settings(max_examples=300)
+    @given(SIDEFILES)
     def test_mutated_sidefile_loads_or_fails_cleanly(self, text):
         """A mutated side-file loads, or raises an AugmentError naming fuzz.toml, in bounded time."""
         start = time.perf_counter()
@@ -157,7 +178,8 @@ class TestLoadSidefileTextFuzz:
 class TestBuildGraphFuzz:
     """build_graph on mutated side-files that load."""
 
-    @given(mutated_sidefiles(BASE_SIDEFILE))
+    @settings(max_examples=300)
+    @given(SIDEFILES)
     def test_mutated_geometry_builds_or_fails_cleanly(self, text):
         """A loaded mutated side-file gives a conductor graph or an AugmentError, in bounded time."""
         start = time.perf_counter()
@@ -173,11 +195,11 @@ class TestBuildGraphFuzz:
 class TestPipelineBuildFuzz:
     """pipeline.build (parse to synthesis, no simulation) on mutated netlists and side-files."""
 
-    @settings(max_examples=150)
+    @settings(max_examples=300)
     @given(st.one_of(
-        st.tuples(mutated_netlists(BASE_NETLIST), st.just(BASE_SIDEFILE)),
-        st.tuples(st.just(BASE_NETLIST), mutated_sidefiles(BASE_SIDEFILE)),
-        st.tuples(mutated_netlists(BASE_NETLIST), mutated_sidefiles(BASE_SIDEFILE)),
+        st.tuples(mutated_netlists(BASE_NETLIST), st.sampled_from([BASE_SIDEFILE, RICH_SIDEFILE])),
+        st.tuples(st.just(BASE_NETLIST), SIDEFILES),
+        st.tuples(mutated_netlists(BASE_NETLIST), SIDEFILES),
     ))
     def test_mutated_inputs_build_or_fail_cleanly(self, texts):
         """Mutated files give an augmented netlist or an AugmentError, in bounded time."""
