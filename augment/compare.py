@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from augment.errors import SimulatorError
-from augment.synthesis import DERIVATIVE_HENRY, Augmented, ProbeNodes
+from augment.synthesis import Augmented, ProbeNodes
 
 RINGING_MIN_PERIODS = 3
 RINGING_THRESHOLD = 0.05  # of the error's peak after the edge (SPEC)
@@ -152,8 +152,8 @@ def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Map
     size = len(base)
     readings = []
     derivative = {
-        cid: _node_voltage(augmented_vectors, node, size, "augmented") / DERIVATIVE_HENRY
-        for cid, node in augmented.derivative_nodes.items()
+        cid: _derivative(base, _node_voltage(augmented_vectors, vector, size, "augmented"), analysis)
+        for cid, vector in augmented.current_vectors.items()
     }
     for probe in augmented.probes:
         ideal = _node_voltage(ideal_vectors, probe.plus_net, len(ideal_base), "original") - _node_voltage(
@@ -179,6 +179,13 @@ def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Map
             ringing = ringing_frequency(base, ideal, probed - ideal)
         readings.append(Reading(probe, ideal, local, probed, ringing, tuple(contributions)))
     return Comparison(analysis, base, tuple(readings))
+
+
+def _derivative(base: np.ndarray, current: np.ndarray, analysis: str) -> np.ndarray:
+    """dI/dt of a conductor's current: j omega I in AC, finite differences on the time grid."""
+    if analysis == "ac":
+        return 2j * np.pi * base * current
+    return np.gradient(current, base) if len(base) > 1 else np.zeros_like(current)
 
 
 def _rms(base: np.ndarray, values: np.ndarray) -> float:

@@ -524,8 +524,9 @@ def _statements_transformer():
             name, *fields = children
             kind = name[0].upper()
             if name[1:2] == "." and len(name) > 2:
-                # ngspice's flattened form R.X1.R3 is the element X1.R3 of kind R.
-                name = name[2:]
+                # ngspice's flattened form R.X1.R3 is the element X1.R3 of kind R; a lark
+                # token keeps its position, for errors about the element.
+                name = Token.new_borrow_pos(name.type, name[2:], name) if isinstance(name, Token) else name[2:]
             nodes, rest = _split_nodes(name, kind, fields)
             value = None
             if kind in _VALUE_KINDS:
@@ -971,7 +972,8 @@ def _offset_location(text: str, offset: int, filename: str) -> Location:
 def _assignments(args: str) -> list[tuple[str, str]]:
     """``name=value`` pairs of a .param line; values may be {expr} or contain spaces in braces."""
     pairs = []
-    for match in re.finditer(r"([A-Za-z_]\w*)\s*=\s*(\{[^}]*\}|'[^']*'|[^\s]+)", args):
+    # Names start only where a word starts: retrying inside a long word is quadratic.
+    for match in re.finditer(r"(?<!\w)([A-Za-z_]\w*)\s*=\s*(\{[^}]*\}|'[^']*'|[^\s]+)", args):
         pairs.append((match.group(1).lower(), match.group(2)))
     return pairs
 
@@ -1072,9 +1074,12 @@ def _evaluate(expression: str, params: Mapping[str, str], active: tuple) -> floa
             raise ValueError(f"'{token}' in expression '{expression}'")
     try:
         tree = ast.parse(" ".join(pieces), mode="eval")
+        return float(_eval_node(tree.body))
     except SyntaxError:
         raise ValueError(f"'{expression}' is not an expression") from None
-    return float(_eval_node(tree.body))
+    except (RecursionError, MemoryError):
+        # Thousands of nested operators or parentheses: Python's parser gives up.
+        raise ValueError(f"expression nested too deeply ({len(expression)} characters)") from None
 
 
 def _eval_node(node):

@@ -150,7 +150,7 @@ class Simulator:
         # ngspice takes a deck without .end as unfinished and loads nothing.
         if not _END.search(text):
             text += ".end\n"
-        where = os.fspath(directory) if directory is not None else os.getcwd()
+        where = os.path.abspath(directory) if directory is not None else os.getcwd()
         reply = self._request(("run", text, where), name)
         if reply[0] == "stale":
             self._stop()

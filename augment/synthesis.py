@@ -27,9 +27,9 @@ from augment.errors import NetlistError
 from augment.inductance import InductanceMatrix, check_positive_definite, coupling_coefficients
 from augment.netlist import Element, Netlist, write_netlist
 
-# The derivative sensors feed I_j into an inductor of this value, so their node voltage is
-# DERIVATIVE_HENRY * dI_j/dt: volts of order one for nanohenry mutuals and ampere-per-ns edges.
-DERIVATIVE_HENRY = 1e-9
+# Each probe's EMF is summed as a voltage across an inductor of this value fed by currents
+# (M_pj / SUM_HENRY) I_j: gains of order one for nanohenry mutuals.
+SUM_HENRY = 1e-9
 CURRENT_CARRYING = ("wire", "body", "coil", "aggressor")
 ANALYSIS_KINDS = ("tran", "ac", "dc", "op", "noise")
 
@@ -65,7 +65,7 @@ class Augmented:
     original_text: str  # the original netlist as simulated (same analysis, no .control)
     analysis: str
     probes: tuple[ProbeNodes, ...]
-    derivative_nodes: Mapping[str, str]  # conductor id -> node holding DERIVATIVE_HENRY * dI/dt
+    current_vectors: Mapping[str, str]  # conductor id -> vector of its current (sense branch)
     probe_mutuals: Mapping[str, Mapping[str, float]]  # probe -> conductor id -> partial M (H)
     # probe -> conductor id -> mutual with the probe loop closed by the straight path between
     # its points (partial M of the leads minus that of the path): the loop's EMF per dI/dt
@@ -241,7 +241,6 @@ class _Synthesis:
         self.inductor_of: dict[str, str] = {}  # conductor id -> inductor name
         self.sense_of: dict[str, str] = {}  # conductor id -> its 0 V current sense
         self.probe_inductors: dict[str, str] = {}  # probe name -> loop inductor
-        self.derivative_nodes: dict[str, str] = {}
         self.inductors = 0
         self.couplings = 0
 
@@ -259,8 +258,6 @@ class _Synthesis:
             self.series_inductor(c)
         self.claim_probe_inductors()
         self.mutual_couplings()
-        if self.graph.probes:
-            self.derivative_sensors()
         probes, probe_mutuals, loop_mutuals = [], {}, {}
         for setup in self.graph.probes:
             probes.append(self.probe(setup))
@@ -276,7 +273,7 @@ class _Synthesis:
             original_text=_simulation_text(self.netlist, analysis, []),
             analysis=analysis.split()[0].lstrip(".").lower(),
             probes=tuple(probes),
-            derivative_nodes=self.derivative_nodes,
+            current_vectors={cid: f"{sense.lower()}#branch" for cid, sense in self.sense_of.items()},
             probe_mutuals=probe_mutuals,
             loop_mutuals=loop_mutuals,
             inductor_names={
@@ -379,16 +376,34 @@ class _Synthesis:
             self.lines.append(f"{self.book.claim(f'KX_{n}')} {names[a]} {names[b]} {kij:.9g} $ {a} ~ {b}")
         self.couplings = len(kept)
 
-    def derivative_sensors(self) -> None:
-        """Node voltage DERIVATIVE_HENRY * dI/dt of each current-carrying conductor, no load."""
-        if self.carrying:
-            self.lines.append(f"* dI/dt sensors: V(node) = {DERIVATIVE_HENRY:g} H * dI/dt, no load on the circuit")
-        for c in self.carrying:
-            inductor = self.inductor_of[c.id]
-            node = self.book.claim(f"d_{inductor}")
-            self.lines.append(f"{self.book.claim('FX_D_' + inductor)} 0 {node} {self.sense_of[c.id]} 1 $ {c.id}")
-            self.lines.append(f"{self.book.claim('LX_D_' + inductor)} {node} 0 {_value(DERIVATIVE_HENRY)} $ {c.id}")
-            self.derivative_nodes[c.id] = node
+    def emf_sum(self, label: str, mutuals: Mapping[str, float], cid: str) -> str | None:
+        """A node whose voltage is sum_j M_j dI_j/dt, from linear sources only; None if all M are 0.
+
+        Each conductor's sensed current, scaled by M_j / SUM_HENRY, is injected into one
+        SUM_HENRY inductor to ground: its voltage is SUM_HENRY d/dt(sum_j M_j I_j / SUM_HENRY).
+        Nothing here loads the circuit.
+        """
+        terms = [(j, m) for j, m in mutuals.items() if m != 0.0]
+        if not terms:
+            return None
+        node = self.book.claim(f"s_{label}")
+        for j, m in terms:
+            self.lines.append(
+                f"{self.book.claim(f'FX_{label}')} 0 {node} {self.sense_of[j]} {_value(m / SUM_HENRY)} $ {cid} <- {j}"
+            )
+        self.lines.append(f"{self.book.claim(f'LX_S_{label}')} {node} 0 {_value(SUM_HENRY)} $ {cid} EMF sum")
+        return node
+
+    def reading(self, label: str, plus: str, minus: str, emf: str | None, cid: str, what: str) -> str:
+        """A node at V(plus) - V(minus) - V(emf): what an open-circuit instrument reads."""
+        out = self.book.claim(f"r_{label}")
+        if emf is None:
+            self.lines.append(f"{self.book.claim(f'EX_{label}')} {out} 0 {plus} {minus} 1 $ {cid} {what}")
+            return out
+        across = self.book.claim(f"x_{label}")
+        self.lines.append(f"{self.book.claim(f'EX_{label}')} {across} 0 {plus} {minus} 1 $ {cid} {what}")
+        self.lines.append(f"{self.book.claim(f'EX_{label}')} {out} {across} {emf} 0 -1 $ {cid} minus the EMF")
+        return out
 
     def mutuals_of(self, setup) -> tuple[dict[str, float], dict[str, float]]:
         """Partial mutuals of a probe's leads, and of its straight zero-area path, with each
@@ -406,45 +421,41 @@ class _Synthesis:
         plus, minus = self.node_of[setup.plus], self.node_of[setup.minus]
         p = self.index[c.id]
         mutuals, local_mutuals = self.mutuals_of(setup)
-        self.lines.append(f"* probe {setup.name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
-        local_node = book.claim(f"r_{setup.name}_local")
-        self.lines.append(
-            f"{book.claim('BX_L_' + setup.name)} {local_node} 0 V = "
-            f"{_emf_expression(plus, minus, local_mutuals, self.derivative_nodes)} $ local:{setup.name} zero-area path"
-        )
-        probed_node = book.claim(f"r_{setup.name}_probed")
-        tip = book.claim(f"r_{setup.name}_tip") if instrument.bandwidth else probed_node
-        if setup.name not in self.probe_inductors:
-            # ideal instrument: open circuit sensed by a controlled source
-            self.lines.append(
-                f"{book.claim('BX_P_' + setup.name)} {tip} 0 V = "
-                f"{_emf_expression(plus, minus, mutuals, self.derivative_nodes)} $ {c.id} ideal instrument"
-            )
+        name = setup.name
+        self.lines.append(f"* probe {name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
+        local_emf = self.emf_sum(f"{name}_local", local_mutuals, f"local:{name}")
+        local_node = self.reading(f"{name}_local", plus, minus, local_emf, f"local:{name}", "zero-area path")
+        probed_node = f"r_{name}_probed"
+        if name not in self.probe_inductors:
+            # ideal instrument: open circuit sensed by controlled sources
+            emf = self.emf_sum(f"{name}_leads", mutuals, c.id)
+            tip = self.reading(f"{name}_tip" if instrument.bandwidth else f"{name}_probed", plus, minus, emf, c.id,
+                               "ideal instrument")
         else:
-            a = book.claim(f"p_{setup.name}_a")
+            a = book.claim(f"p_{name}_a")
             self.lines.append(
-                f"{self.probe_inductors[setup.name]} {plus} {a} {_value(self.henry[p, p])} $ {c.id} loop self inductance"
+                f"{self.probe_inductors[name]} {plus} {a} {_value(self.henry[p, p])} $ {c.id} loop self inductance"
             )
             self.inductors += 1
-            if self.options.coupling == "full":
-                inside = a  # the K lines carry the EMF
+            emf = None if self.options.coupling == "full" else self.emf_sum(f"{name}_leads", mutuals, c.id)
+            if emf is None:
+                inside = a  # with full coupling the K lines carry the EMF
             else:
-                inside = book.claim(f"p_{setup.name}_b")
-                emf = " + ".join(
-                    f"({_value(-m / DERIVATIVE_HENRY)})*v({self.derivative_nodes[cid]})"
-                    for cid, m in mutuals.items()
-                    if m != 0.0
-                ) or "0"
-                self.lines.append(f"{book.claim('BX_E_' + setup.name)} {inside} {a} V = {emf} $ {c.id} induced EMF, one way")
-            self.lines.extend(_instrument_lines(setup.name, instrument, inside, minus, book, c.id))
-            self.lines.append(f"{book.claim('EX_T_' + setup.name)} {tip} 0 {inside} {minus} 1 $ {c.id} reading at the tip")
+                inside = book.claim(f"p_{name}_b")
+                self.lines.append(f"{book.claim('EX_E_' + name)} {inside} {a} {emf} 0 -1 $ {c.id} induced EMF, one way")
+            self.lines.extend(_instrument_lines(name, instrument, inside, minus, book, c.id))
+            tip = self.reading(f"{name}_tip" if instrument.bandwidth else f"{name}_probed", inside, minus, None, c.id,
+                               "reading at the tip")
         if instrument.bandwidth:
             # single-pole limit of the instrument, after the tip
+            probed_node = book.claim(probed_node)
             cap = 1.0 / (2 * math.pi * 1e3 * instrument.bandwidth)
-            self.lines.append(f"{book.claim('RX_W_' + setup.name)} {tip} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
-            self.lines.append(f"{book.claim('CX_W_' + setup.name)} {probed_node} 0 {_value(cap)} $ {c.id}")
+            self.lines.append(f"{book.claim('RX_W_' + name)} {tip} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
+            self.lines.append(f"{book.claim('CX_W_' + name)} {probed_node} 0 {_value(cap)} $ {c.id}")
+        else:
+            probed_node = tip
         return ProbeNodes(
-            name=setup.name,
+            name=name,
             plus_net=self.graph.junctions[setup.plus].net,
             minus_net=self.graph.junctions[setup.minus].net,
             probed_node=probed_node,
@@ -453,19 +464,6 @@ class _Synthesis:
             conductor=c.id,
             lead_length_m=c.length_m,
         )
-
-
-def _emf_expression(
-    plus: str, minus: str, mutuals: Mapping[str, float], derivative_nodes: Mapping[str, str]
-) -> str:
-    """``V(plus) - V(minus) - sum_j M_j dI_j/dt`` as a behavioural-source expression."""
-    terms = [f"v({plus})" if plus != "0" else "0", f"- v({minus})" if minus != "0" else ""]
-    terms += [
-        f"+ ({_value(-m / DERIVATIVE_HENRY)})*v({derivative_nodes[cid]})"
-        for cid, m in mutuals.items()
-        if m != 0.0 and cid in derivative_nodes
-    ]
-    return " ".join(t for t in terms if t)
 
 
 def _instrument_lines(name: str, instrument, tip: str, minus: str, book: _NameBook, cid: str) -> list[str]:

@@ -10,7 +10,7 @@ import pytest
 
 from augment.compare import compare, ringing_frequency, summary
 from augment.sidefile import BUILTIN_INSTRUMENTS
-from augment.synthesis import DERIVATIVE_HENRY, Augmented, ProbeNodes
+from augment.synthesis import Augmented, ProbeNodes
 
 
 def _step_with_ringing(f_hz: float, decay_s: float, t_end: float = 400e-9, dt: float = 0.1e-9):
@@ -54,7 +54,7 @@ class TestRingingFrequency:
 def _augmented(probe: ProbeNodes, mutual: float) -> Augmented:
     return Augmented(
         text="", original_text="", analysis="tran", probes=(probe,),
-        derivative_nodes={"wire:n1:1": "d_w"}, probe_mutuals={probe.name: {"wire:n1:1": mutual}},
+        current_vectors={"wire:n1:1": "vx_s_w#branch"}, probe_mutuals={probe.name: {"wire:n1:1": mutual}},
         loop_mutuals={probe.name: {"wire:n1:1": mutual}},
         inductor_names={}, inductors=0, couplings=0,
     )
@@ -75,8 +75,8 @@ class TestCompare:
         original = {"time": t, "a": ideal}
         augmented = {
             "time": t, "r_p_probed": probed, "r_p_local": ideal,
-            # the sensor of a 2 A/us ramp in wire:n1:1
-            "d_w": np.full_like(t, DERIVATIVE_HENRY * 2.0 / 1e-6),
+            # a 2 A/us ramp in wire:n1:1
+            "vx_s_w#branch": 2.0 * t / 1e-6,
         }
         comparison = compare(_augmented(PROBE, 5e-9), original, augmented)
         (reading,) = comparison.readings
@@ -94,7 +94,7 @@ class TestCompare:
         t = np.linspace(0, 1e-6, 101)
         coarse = np.linspace(0, 1e-6, 11)
         original = {"time": coarse, "a": coarse * 1e6}
-        augmented = {"time": t, "r_p_probed": t * 1e6, "r_p_local": t * 1e6, "d_w": np.zeros_like(t)}
+        augmented = {"time": t, "r_p_probed": t * 1e6, "r_p_local": t * 1e6, "vx_s_w#branch": np.zeros_like(t)}
         (reading,) = compare(_augmented(PROBE, 0.0), original, augmented).readings
         np.testing.assert_allclose(reading.ideal, t * 1e6, atol=1e-12)
 
@@ -104,7 +104,7 @@ class TestCompare:
         ideal = 1 / (1 + 1j * f / 1e5)
         probed = ideal * 1.1
         original = {"frequency": f, "a": ideal}
-        augmented = {"frequency": f, "r_p_probed": probed, "r_p_local": ideal, "d_w": np.zeros(31, complex)}
+        augmented = {"frequency": f, "r_p_probed": probed, "r_p_local": ideal, "vx_s_w#branch": np.zeros(31, complex)}
         ac = replace(_augmented(PROBE, 0.0), analysis="ac")
         comparison = compare(ac, original, augmented)
         row = summary(comparison, comparison.readings[0])

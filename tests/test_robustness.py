@@ -17,13 +17,13 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from augment.cli import main
 from augment.conductors import build_graph
 from augment.errors import AugmentError, InputError, Location
-from augment.netlist import parse_netlist, parse_netlist_text
+from augment.netlist import parse_netlist, parse_netlist_text, write_netlist
 from augment.pipeline import build
 from augment.sidefile import load_sidefile_text
 from strategies import include_chains, mutated_netlists, mutated_sidefiles
@@ -132,13 +132,27 @@ class TestParseNetlistTextFuzz:
 
     @settings(max_examples=300)
     @given(mutated_netlists(BASE_NETLIST))
+    # Found by this test and fixed in augment/netlist.py: a flattened-style name lost its
+    # position (AttributeError); a 100k-character .param line took minutes (quadratic regex);
+    # thousands of nested operators overflowed Python's parser (MemoryError); a statement
+    # ending early put a raw newline into the message.
+    @example(BASE_NETLIST.replace(".tran", "Z.tran"))
+    @example(BASE_NETLIST.replace(".tran", ".param cval='1p*10' " + "x" * 100_000 + "\n.tran"))
+    @example(BASE_NETLIST.replace("R1 in out 50", "R1 in out {" + "+" * 100_000 + "1}"))
+    @example(BASE_NETLIST.replace("R1 in out 50", "R1 in out {" + "(" * 5_000 + "1" + ")" * 5_000 + "}"))
+    @example(BASE_NETLIST.replace("20n 50n)", "20n ="))
     def test_mutated_netlist_parses_or_fails_cleanly(self, text):
-        """A mutated netlist parses, or raises an AugmentError naming fuzz.cir, in bounded time."""
+        """A mutated netlist parses and its values evaluate, or it raises an AugmentError, in bounded time."""
         start = time.perf_counter()
         try:
-            parse_netlist_text(text, "fuzz.cir", BAD)
+            netlist = parse_netlist_text(text, "fuzz.cir", BAD)
         except AugmentError as error:
             _check_clean(error)
+        else:
+            # value_of answers None for a value it cannot evaluate; anything else escaping is a bug.
+            for element in netlist.elements:
+                netlist.value_of(element.name)
+            assert write_netlist(netlist).startswith(netlist.title_raw or "")
         assert time.perf_counter() - start < EXAMPLE_LIMIT_S
 
     @settings(max_examples=40)
@@ -180,6 +194,12 @@ class TestBuildGraphFuzz:
 
     @settings(max_examples=300)
     @given(SIDEFILES)
+    # Found by these tests and fixed in augment/sidefile.py: 1e308 turns (OverflowError, or a
+    # helix of unbounded size); a radius of 5e-324 mm, 0 in metres (division by zero).
+    @example(RICH_SIDEFILE.replace("turns = 5", "turns = 1e308"))
+    @example(RICH_SIDEFILE.replace("turns = 5", "turns = 1000000000"))
+    @example(RICH_SIDEFILE.replace("wire_radius = 0.2", "wire_radius = 5e-324"))
+    @example(RICH_SIDEFILE.replace("[60, -4, 0]", "[1e300, -4, 0]"))
     def test_mutated_geometry_builds_or_fails_cleanly(self, text):
         """A loaded mutated side-file gives a conductor graph or an AugmentError, in bounded time."""
         start = time.perf_counter()
