@@ -23,7 +23,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from augment.conductors import ConductorGraph
-from augment.errors import NetlistError
+from augment.errors import Location, NetlistError
 from augment.inductance import InductanceMatrix, check_positive_definite, coupling_coefficients
 from augment.netlist import Element, Netlist, write_netlist
 
@@ -114,7 +114,7 @@ def choose_analysis(netlist: Netlist, graph: ConductorGraph, override: str | Non
         if directive.kind in ("tran", "ac"):
             return f".{directive.kind} {directive.args}"
     raise NetlistError(
-        f"{netlist.path}:1:1",
+        Location(netlist.path, 1, 1),
         "no .tran or .ac analysis: add one to the netlist or an [analysis] table to the side-file",
     )
 
