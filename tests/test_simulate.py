@@ -281,45 +281,31 @@ class TestSimulate:
         assert done.stdout.strip() == "False"
 
 
+THREE_INDUCTORS = """three coupled inductors
+V1 a 0 PULSE(0 1 0 1n 1n 10n 20n)
+R1 a b 10
+L1 b 0 10n
+L2 c 0 10n
+R2 c 0 10
+L3 d 0 10n
+R3 d 0 10
+{couplings}
+.tran 0.1n 20n
+.end
+"""
+
+
 class TestCouplingNotes:
     def test_missing_k_line_is_a_note_not_a_failure(self, simulator):
         """Three coupled inductors with one K line missing simulate; ngspice's note is kept."""
         # L1-L2 and L2-L3 coupled, L1-L3 not: ngspice takes the missing coefficient as 0
-        text = textwrap.dedent("""\
-            three inductors, two couplings
-            V1 a 0 PULSE(0 1 0 1n 1n 10n 20n)
-            R1 a b 10
-            L1 b 0 10n
-            L2 c 0 10n
-            R2 c 0 10
-            L3 d 0 10n
-            R3 d 0 10
-            K1 L1 L2 0.5
-            K2 L2 L3 0.1
-            .tran 0.1n 20n
-            .end
-            """)
-        result = simulator.run(text)
+        result = simulator.run(THREE_INDUCTORS.format(couplings="K1 L1 L2 0.5\nK2 L2 L3 0.1"))
         assert result.vectors["time"].size > 10
         assert any("no K line" in m for m in result.messages)
 
     def test_indefinite_coupling_is_a_failure(self, simulator):
         """A coupled set that is not positive definite is refused with a hint."""
         # k12 = k23 = 0.9 and k13 = -0.9 make the 3x3 inductance matrix indefinite
-        text = textwrap.dedent("""\
-            three inductors, indefinite couplings
-            V1 a 0 PULSE(0 1 0 1n 1n 10n 20n)
-            R1 a b 10
-            L1 b 0 10n
-            L2 c 0 10n
-            R2 c 0 10
-            L3 d 0 10n
-            R3 d 0 10
-            K1 L1 L2 0.9
-            K2 L2 L3 0.9
-            K3 L1 L3 -0.9
-            .tran 0.1n 20n
-            .end
-            """)
+        text = THREE_INDUCTORS.format(couplings="K1 L1 L2 0.9\nK2 L2 L3 0.9\nK3 L1 L3 -0.9")
         with pytest.raises(SimulatorError, match="positive definite"):
             simulator.run(text)
