@@ -65,7 +65,23 @@ _kmin_opt = click.option(
     "--kmin", type=click.FloatRange(0, 1, max_open=True), default=1e-6, show_default=True,
     help="Drop couplings with |k| below this when the matrix stays positive definite.",
 )
-_analysis_opt = click.option("--analysis", default=None, help='Analysis to run instead of the netlist\'s, e.g. "tran 0.1n 2u".')
+def _check_analysis(ctx, param, value):
+    """--analysis takes a .tran or .ac line's text; checked here so a typo is bad input (exit 2)."""
+    if value is None:
+        return None
+    from augment.sidefile import analysis_problem
+
+    kind, _, rest = value.strip().lstrip(".").partition(" ")
+    problem = analysis_problem(kind.lower(), rest.strip())
+    if problem:
+        raise click.BadParameter(problem)
+    return value
+
+
+_analysis_opt = click.option(
+    "--analysis", default=None, callback=_check_analysis,
+    help='Analysis to run instead of the netlist\'s, e.g. "tran 0.1n 2u" or "ac dec 20 1k 1g".',
+)
 
 
 @click.group(cls=_Group)

@@ -77,51 +77,56 @@ def _base(vectors: Mapping[str, np.ndarray], analysis: str) -> np.ndarray:
 
 
 def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> float | None:
-    """Frequency of the strongest oscillation in ``error`` after the largest edge of ``ideal``.
+    """Frequency of the strongest oscillation in ``error`` after its largest edge.
 
-    The window runs from the end of the ideal waveform's steepest edge to the start of its
-    next edge (from the error's own steepest point to the end when the ideal waveform is
-    flat, as when all of the reading is pickup). In that window the strongest spectral line
-    whose period fits three times is taken, the error is band-passed around it (zero-phase,
-    so crossing instants stay put), and its crossings are counted while the oscillation's
-    envelope stays above 5 % of its peak (SPEC). Fewer than three periods, or an oscillation
-    under 1 % of the error's own peak (numerical noise), mean no ringing: None. The
-    frequency is the number of half-periods over the time they span.
+    The window runs from the steepest point of the error (an edge of the ideal waveform, or
+    the pickup of a field source) to the end of the run, resampled on a uniform grid. The
+    strongest line of the spectrum of its derivative whose period fits three times in the
+    window is taken, the error is band-passed around that line (zero-phase, so crossings
+    stay in place) and its crossings are counted over the stretch where the oscillation's
+    envelope is above 5 % of its peak (SPEC). Fewer than three periods there, or an
+    oscillation under 1 % of the error's own peak (numerical noise), mean no ringing: None.
+    The frequency is the number of half-periods over the time they span.
     """
     if len(base) < 16:
         return None
     window = _after_largest_edge(base, ideal, error)
     if window is None:
         return None
-    t, x = base[window], error[window]
-    if len(x) < 16 or np.ptp(x) == 0:
+    t_raw, x_raw = base[window], error[window]
+    if len(t_raw) < 16 or t_raw[-1] <= t_raw[0] or np.ptp(x_raw) == 0:
         return None
     from scipy import signal
 
-    dt = float(np.median(np.diff(t)))
-    x = signal.detrend(x)
+    steps = np.diff(t_raw)
+    dt = float(np.median(steps[steps > 0]))
+    count = int(min(max(len(t_raw), (t_raw[-1] - t_raw[0]) / dt), 2**18))
+    t = np.linspace(t_raw[0], t_raw[-1], count)
+    x = signal.detrend(np.interp(t, t_raw, x_raw))
+    dt = t[1] - t[0]
     spectrum = np.abs(np.fft.rfft(x * np.hanning(len(x))))
     frequencies = np.fft.rfftfreq(len(x), dt)
     usable = frequencies >= RINGING_MIN_PERIODS / (t[-1] - t[0])
     if not np.any(usable[1:]):
         return None
-    peak_f = frequencies[usable][np.argmax(spectrum[usable])]
+    # weighted by frequency (the spectrum of dx/dt): a ringing line stands out of the broad
+    # low-frequency hump that the edge itself leaves in the window
+    peak_f = frequencies[usable][np.argmax((spectrum * frequencies)[usable])]
     nyquist = 0.5 / dt
     low, high = 0.7 * peak_f / nyquist, min(1.3 * peak_f / nyquist, 0.99)
     if not 0 < low < high:
         return None
-    sos = signal.butter(2, [low, high], btype="bandpass", output="sos")
-    ring = signal.sosfiltfilt(sos, x)
+    ring = signal.sosfiltfilt(signal.butter(2, [low, high], btype="bandpass", output="sos"), x)
     envelope = np.abs(signal.hilbert(ring))
-    if envelope.max() < 0.01 * np.max(np.abs(error[window])):
+    if envelope.max() < 0.01 * np.max(np.abs(x_raw)):
         return None
-    # from the envelope's peak on, while it stays above 5 % of that peak
+    # the stretch around the envelope's peak where it stays above 5 % of that peak
     top = int(np.argmax(envelope))
-    above = envelope[top:] >= RINGING_THRESHOLD * envelope[top]
-    stop = top + (int(np.argmin(above)) if not above.all() else len(above))
-    y, ty = ring[top:stop], t[top:stop]
-    sign = np.signbit(y)
-    k = np.nonzero(sign[1:] != sign[:-1])[0]
+    above = envelope >= RINGING_THRESHOLD * envelope[top]
+    first = top - int(np.argmin(above[top::-1])) + 1 if not above[: top + 1].all() else 0
+    last = top + int(np.argmin(above[top:])) if not above[top:].all() else len(above)
+    y, ty = ring[first:last], t[first:last]
+    k = np.nonzero(np.signbit(y[1:]) != np.signbit(y[:-1]))[0]
     if len(k) < 2 * RINGING_MIN_PERIODS + 1:
         return None
     instants = ty[k] - y[k] * (ty[k + 1] - ty[k]) / (y[k + 1] - y[k])
@@ -130,18 +135,22 @@ def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) ->
 
 
 def _after_largest_edge(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> slice | None:
-    """Samples from the end of the largest edge of ``ideal`` to the start of its next edge."""
-    slope = np.abs(np.gradient(ideal, base))
-    if not np.any(slope > 0):
-        slope = np.abs(np.gradient(error, base))
-        return slice(int(np.argmax(slope)), len(base)) if np.any(slope > 0) else None
-    steep = slope > 0.1 * slope.max()
-    start = int(np.argmax(slope))
-    while start < len(base) - 1 and steep[start]:
-        start += 1
-    later = np.nonzero(steep[start:])[0]
-    stop = start + int(later[0]) if len(later) else len(base)
-    return slice(start, stop)
+    """Samples from the error's largest edge to the end of the run.
+
+    The largest edge is the error's steepest point, moved past the rest of an ideal edge it
+    sits on. Later, smaller edges stay in the window: they re-excite the same lead ringing,
+    and cutting there would hide ringing that outlasts them.
+    """
+    error_slope = np.abs(np.gradient(error, base))
+    if not np.any(error_slope > 0):
+        return None
+    start = int(np.argmax(error_slope))
+    ideal_slope = np.abs(np.gradient(ideal, base))
+    if np.any(ideal_slope > 0):
+        steep = ideal_slope > 0.1 * ideal_slope.max()
+        while start < len(base) - 1 and steep[start]:
+            start += 1
+    return slice(start, len(base))
 
 
 def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Mapping) -> Comparison:
@@ -160,7 +169,7 @@ def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Map
             ideal_vectors, probe.minus_net, len(ideal_base), "original"
         )
         if len(ideal_base) != size or not np.allclose(ideal_base, base, rtol=1e-9, atol=0):
-            # both runs use the same grid (.options interp); this only guards odd cases
+            # each run has its own time points: the schematic's reading is interpolated
             ideal = np.interp(base, ideal_base, ideal.real) + (
                 1j * np.interp(base, ideal_base, ideal.imag) if np.iscomplexobj(ideal) else 0
             )

@@ -27,7 +27,7 @@ def run_demo(out_dir: Path) -> list[dict]:
 
     documents = []
     for name, netlist, sidefile, what in CASES:
-        click.echo(f"== {name}: {what}", err=True)
+        click.echo(f"== {name}: {what}")
         document = run(SCENARIOS / netlist, SCENARIOS / sidefile, out_dir / name, force=True)
         for line in document["warnings"]:
             click.echo(f"warning: {line}", err=True)

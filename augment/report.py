@@ -302,7 +302,10 @@ def write_text_atomic(path: Path, text: str) -> None:
         raise
 
 
-PROBE_TABLE_COLUMNS = ["name", "instrument", "ideal_max", "probed_min", "probed_max", "max_abs_error", "rms_error", "ringing_hz", "top_source"]
+PROBE_TABLE_COLUMNS = [
+    "name", "instrument", "ideal_min", "ideal_max", "probed_min", "probed_max", "max_abs_error", "rms_error",
+    "ringing_hz", "top_source",
+]
 
 
 def format_probe_table(document: dict) -> str:

@@ -52,6 +52,11 @@ _MAX_COIL_SEGMENTS = 20_000
 # What each [analysis] line holds after its keyword: (names of the numbers, how many are required).
 _ANALYSIS_FIELDS = {"tran": (("TSTEP", "TSTOP", "TSTART", "TMAX"), 2), "ac": (("points", "FSTART", "FSTOP"), 3)}
 _DEFAULT_SEGMENTS_PER_TURN = 24
+# The words of an ngspice independent source's value (ngspice manual, "Independent sources").
+_SOURCE_WORDS = frozenset({"DC", "AC", "PULSE", "SIN", "EXP", "PWL", "SFFM", "AM", "TRNOISE", "TRRANDOM"})
+# A transient asking for more output points than this is almost surely a scale-factor slip
+# ("5x" is 5e6 in SPICE); it would run for hours (our limit, no source).
+MAX_TIME_POINTS = 1e7
 # How far apart the two lead ends may be at the instrument, in lead radii or in the spacing of
 # the leads just before their ends, whichever is larger (common practice, no source).
 _CLOSE_RADII = 10.0
@@ -312,6 +317,40 @@ def _bracket_balance(line: str) -> int:
         elif char in "]}":
             balance -= 1
     return balance
+
+
+def analysis_problem(kind: str, value: str) -> str | None:
+    """What is wrong with the fields of a .tran or .ac line, or None when nothing is.
+
+    ``tran = "TSTEP TSTOP [TSTART [TMAX]] [uic]"``, ``ac = "dec|oct|lin POINTS FSTART FSTOP"``.
+    Used for the side-file's [analysis] table and for the command line's --analysis.
+    """
+    if kind not in _ANALYSIS_FIELDS:
+        return f"{kind} {value!r}: only tran and ac analyses can be compared"
+    names, required = _ANALYSIS_FIELDS[kind]
+    fields = value.split()
+    example = 'tran = "0.5n 4u"' if kind == "tran" else 'ac = "dec 20 1k 100meg"'
+    if kind == "tran" and fields and fields[-1].lower() == "uic":
+        fields = fields[:-1]
+    if kind == "ac":
+        if not fields or fields[0].lower() not in {"dec", "oct", "lin"}:
+            return f"ac = {value!r} must start with dec, oct or lin, e.g. {example}"
+        fields = fields[1:]
+    if not required <= len(fields) <= len(names):
+        return (f"{kind} = {value!r} needs {' '.join(names[:required])} "
+                f"(and optionally {' '.join(names[required:]) or 'nothing more'}), e.g. {example}")
+    numbers = {}
+    for name, field in zip(names, fields):
+        try:
+            numbers[name] = spice_number(field)
+        except ValueError:
+            return f"{kind}: {name} = {field!r} is not a SPICE number, e.g. {example}"
+        if numbers[name] < 0 or (numbers[name] == 0 and name != "TSTART"):
+            return f"{kind}: {name} = {field!r} must be greater than 0"
+    if kind == "tran" and numbers["TSTOP"] / numbers["TSTEP"] > MAX_TIME_POINTS:
+        return (f"tran = {value!r} asks for {numbers['TSTOP'] / numbers['TSTEP']:.3g} time points "
+                f"(more than {MAX_TIME_POINTS:g}): check the scale factors of TSTEP and TSTOP")
+    return None
 
 
 def load_sidefile(path: str | Path, netlist: Any) -> SideFile:
@@ -583,30 +622,9 @@ class _Loader:
         return {key: value.strip() for key, value in section.items()}
 
     def check_analysis(self, key: str, value: str) -> None:
-        """The numbers of a .tran or .ac line: ``tran = "TSTEP TSTOP [TSTART [TMAX]] [uic]"``,
-        ``ac = "dec|oct|lin POINTS FSTART FSTOP"``."""
-        names, required = _ANALYSIS_FIELDS[key]
-        fields = value.split()
-        example = 'tran = "0.5n 4u"' if key == "tran" else 'ac = "dec 20 1k 100meg"'
-        if key == "tran" and fields and fields[-1].lower() == "uic":
-            fields = fields[:-1]
-        if key == "ac":
-            if not fields or fields[0].lower() not in {"dec", "oct", "lin"}:
-                self.fail(f"analysis ac = {value!r} must start with dec, oct or lin, e.g. {example}",
-                          ("analysis",), None, key)
-            fields = fields[1:]
-        if not required <= len(fields) <= len(names):
-            self.fail(f"analysis {key} = {value!r} needs {' '.join(names[:required])} "
-                      f"(and optionally {' '.join(names[required:]) or 'nothing more'}), e.g. {example}",
-                      ("analysis",), None, key)
-        for name, field in zip(names, fields):
-            try:
-                number = spice_number(field)
-            except ValueError:
-                self.fail(f"analysis {key}: {name} = {field!r} is not a SPICE number, e.g. {example}",
-                          ("analysis",), None, key)
-            if number < 0 or (number == 0 and name != "TSTART"):
-                self.fail(f"analysis {key}: {name} = {field!r} must be greater than 0", ("analysis",), None, key)
+        problem = analysis_problem(key, value)
+        if problem:
+            self.fail(f"analysis {problem}", ("analysis",), None, key)
 
     def read_terminals(self) -> tuple[dict[str, tuple[Position, ...]], dict[str, Location]]:
         section = self.doc.get("terminals", {})
@@ -812,6 +830,11 @@ class _Loader:
         except NetlistError as error:  # located in the one-line text above, so only its words
             self.fail(f"the current of {what} is not a SPICE source value ({error.message}): {current!r}",
                       table, number, "current")
+        # ngspice takes any word here and fails only when it simulates: name the known ones
+        for word in re.findall(r"(?<![\w.])([A-Za-z]\w*)\s*\(", current) + re.findall(r"^\s*([A-Za-z]\w*)\b", current):
+            if word.upper() not in _SOURCE_WORDS:
+                self.fail(f"the current of {what} uses '{word}', which is no SPICE source function "
+                          f"({', '.join(sorted(_SOURCE_WORDS))}): {current!r}", table, number, "current")
 
     def read_probes(self) -> tuple[ProbeSpec, ...]:
         probes = []

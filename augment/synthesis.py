@@ -124,8 +124,9 @@ def _simulation_text(netlist: Netlist, analysis: str, added: list[str]) -> str:
     text = write_netlist(netlist.replace(added=added), keep_control=False, keep_analyses=False)
     lines = text.rstrip("\n").split("\n")
     end = next((i for i in range(len(lines) - 1, 0, -1) if lines[i].strip().lower() == ".end"), len(lines))
-    # .options interp puts both runs on the same TSTEP grid, so readings compare sample by sample
-    lines[end:end] = [".options interp", ".save all", analysis]
+    # no .options interp: ngspice's own time points keep every breakpoint and corner exact;
+    # the compare stage brings the original run onto the augmented run's time base
+    lines[end:end] = [".save all", analysis]
     return "\n".join(lines) + "\n"
 
 

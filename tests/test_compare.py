@@ -41,8 +41,8 @@ class TestRingingFrequency:
         t, ideal, _ = _step_with_ringing(70e6, 60e-9)
         assert ringing_frequency(t, ideal, np.zeros_like(t)) is None
 
-    def test_window_stops_at_the_next_edge(self):
-        """Ringing is measured after the largest edge only, up to the next edge."""
+    def test_later_smaller_edge_does_not_take_over(self):
+        """The ringing after the largest edge is reported, not a weaker one after a later edge."""
         t, ideal, error = _step_with_ringing(50e6, 80e-9)
         # a second, smaller edge at 300 ns with ringing of another frequency after it
         late = t >= 300e-9
