@@ -781,8 +781,16 @@ class _Loader:
                 on_wire = any(_distance_to_polyline(position, *_polyline_segments(other.path)) <= tolerance
                               for other in others)
                 if not (on_terminal or on_wire):
+                    same_net = [(np.linalg.norm(position - np.asarray(pos)), f"{name}.{k}", pos)
+                                for name, k, node, pos in placed if node == wire.net]
+                    hint = ""
+                    if same_net:
+                        gap, label, pos = min(same_net, key=lambda item: item[0])
+                        hint = (f" (the nearest terminal of the net is {label} at {self.describe(pos)}, "
+                                f"{gap / self.scale:.4g} {self.units} away; ends must be within "
+                                f"{tolerance / self.scale:.4g} {self.units})")
                     self.fail(f"wire {wire.number} of net '{wire.net}' {end} at {self.describe(position)}, "
-                              f"which is no terminal of net '{wire.net}' and no point of its wires",
+                              f"which is no terminal of net '{wire.net}' and no point of its wires{hint}",
                               ("wire",), number, "path")
 
     def read_aggressors(self) -> tuple[AggressorSpec, ...]:

@@ -183,7 +183,8 @@ class TestLoadSidefileText:
         error = fails(text)
         assert str(error) == (
             f"ring.toml:{line_of(text, 'path', 2)}:1: wire 2 of net 'top' ends at (40, 60, 0) mm, "
-            "which is no terminal of net 'top' and no point of its wires")
+            "which is no terminal of net 'top' and no point of its wires (the nearest terminal of the net "
+            "is R2.1 at (30, 60, 0) mm, 10 mm away; ends must be within 0.025 mm)")
 
     def test_wire_end_on_another_wire_mid_segment(self):
         """A wire may end on another wire of its net in the middle of a segment."""
