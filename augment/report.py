@@ -79,8 +79,11 @@ def draw_geometry(graph: ConductorGraph, netlist: Any, out_path: str | Path, *,
             draw(conductor.points, "element body", color=_BODY_COLOUR, linewidth=5.0)
         elif conductor.kind == "coil":
             draw(conductor.points, "coil", color=_COIL_COLOUR, linewidth=1.2)
+            axes.text(*(conductor.points[len(conductor.points) // 2] * _MM), f" {conductor.id}", fontsize=7,
+                      color=_COIL_COLOUR)
         elif conductor.kind == "aggressor":
             draw(conductor.points, "aggressor", color=_AGGRESSOR_COLOUR, linewidth=1.5, linestyle="--")
+            axes.text(*(conductor.points[0] * _MM), f" {conductor.id}", fontsize=7, color=_AGGRESSOR_COLOUR)
         elif conductor.kind == "probe":
             setup = probe_setups[conductor.id]
             turn = setup.plus_lead_end
