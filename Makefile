@@ -26,7 +26,7 @@ ngspice:
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test,cluster,bench]'
+	$(BIN)/python -m pip install --quiet -e '.[test,cluster]'
 	touch $(STAMP)
 
 clean:
