@@ -470,17 +470,12 @@ class _Locator:
 
 
 def _check_out_dir(out: Path, plan: Plan, junit: Path | None, force: bool) -> None:
-    resolved = out.resolve()
+    from augment.pipeline import check_output_folder
+
     inputs = [plan.path, *(p for case in plan.cases for p in (case.netlist, case.sidefile))]
-    for path in inputs:
-        if resolved in path.resolve().parents:
-            raise OptionError(str(out), f"the batch folder holds the input {path}; choose another -o")
     if junit is not None and junit.resolve() in {p.resolve() for p in inputs}:
         raise OptionError(str(junit), "refusing to overwrite an input file; choose another --junit")
-    if out.exists() and not out.is_dir():
-        raise OptionError(str(out), "exists and is not a folder")
-    if out.exists() and any(out.iterdir()) and not force:
-        raise OptionError(str(out), "batch folder exists and is not empty; use --force to replace its contents")
+    check_output_folder(out, inputs, force, what="batch folder", relation="holds")
 
 
 def _local_rows(tasks: list[tuple], jobs: int | None) -> Iterator[dict]:

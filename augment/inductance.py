@@ -329,7 +329,7 @@ def _local_radius(graph, setup) -> float:
             p, q = c.points[0], c.points[-1]
             if (np.allclose(p, a) and np.allclose(q, b)) or (np.allclose(p, b) and np.allclose(q, a)):
                 return c.radius
-    return graph.conductors[[x.id for x in graph.conductors].index(setup.conductor)].radius
+    return graph.conductor(setup.conductor).radius
 
 
 def extract(graph) -> InductanceMatrix:

@@ -147,7 +147,7 @@ def run(
     start = time.perf_counter()
     inputs = [Path(netlist_path), Path(sidefile_path)]
     if out_dir is not None:
-        _check_output_dir(Path(out_dir), inputs, force)
+        check_output_folder(Path(out_dir), inputs, force)
     built = build(netlist_path, sidefile_path, options)
     if simulator is None:
         with Simulator(timeout_s=timeout_s) as own:
@@ -160,15 +160,17 @@ def run(
     return document
 
 
-def _check_output_dir(out_dir: Path, inputs: list[Path], force: bool) -> None:
+def check_output_folder(out_dir: Path, inputs: list[Path], force: bool, what: str = "report folder",
+                        relation: str = "would hold or replace") -> None:
+    """Refuse an output folder that is a file, holds an input, or has contents without --force."""
     from augment.errors import OptionError
 
     resolved = out_dir.resolve()
     for path in inputs:
         p = path.resolve()
         if p == resolved or resolved in p.parents:
-            raise OptionError(str(out_dir), f"the report folder would hold or replace the input {path}; choose another -o")
+            raise OptionError(str(out_dir), f"the {what} {relation} the input {path}; choose another -o")
     if out_dir.exists() and not out_dir.is_dir():
         raise OptionError(str(out_dir), "exists and is not a folder")
     if out_dir.exists() and any(out_dir.iterdir()) and not force:
-        raise OptionError(str(out_dir), "report folder exists and is not empty; use --force to replace it")
+        raise OptionError(str(out_dir), f"{what} exists and is not empty; use --force to replace it")

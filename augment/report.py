@@ -136,17 +136,24 @@ def _equal_scale(axes: Any, graph: ConductorGraph) -> None:
 
 def _save(figure: Any, out_path: Path) -> Path:
     """Write the PNG under a temporary name in the target folder, then move it into place."""
-    out_path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(prefix=f".{out_path.name}.", suffix=".png", dir=out_path.parent)
-    os.close(handle)
-    os.chmod(temporary, 0o666 & ~_umask())
-    try:
-        figure.savefig(temporary, format="png")
-        os.replace(temporary, out_path)
-    finally:
-        if os.path.exists(temporary):
-            os.remove(temporary)
+    _write_atomic(out_path, lambda temporary: figure.savefig(temporary, format="png"))
     return out_path
+
+
+def _write_atomic(path: Path, write) -> None:
+    """Call ``write(temporary_path)`` beside ``path``, then move the result into place.
+
+    mkstemp makes the file private; it gets the modes any new file gets before the move.
+    """
+    path.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    os.close(handle)
+    try:
+        os.chmod(temporary, 0o666 & ~_umask())
+        write(temporary)
+        os.replace(temporary, path)
+    finally:
+        Path(temporary).unlink(missing_ok=True)
 
 
 def _umask() -> int:
@@ -292,17 +299,7 @@ def write_report(out_dir: Path, built, comparison, document: dict, *, force: boo
 
 def write_text_atomic(path: Path, text: str) -> None:
     """Write a file under a temporary name and move it into place."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        # mkstemp makes it private; the output should get the modes any new file gets
-        os.chmod(tmp, 0o666 & ~_umask())
-        with os.fdopen(fd, "w") as handle:
-            handle.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    _write_atomic(path, lambda temporary: Path(temporary).write_text(text))
 
 
 PROBE_TABLE_COLUMNS = [

@@ -793,16 +793,21 @@ class _Loader:
                               f"which is no terminal of net '{wire.net}' and no point of its wires{hint}",
                               ("wire",), number, "path")
 
+    def unique_name(self, entry: dict, kind: str, number: int, taken) -> str:
+        """The ``name`` of the number-th [[kind]] table: letters, digits, _ and -, and unique."""
+        name = entry.get("name")
+        if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9_\-]+", name):
+            self.fail(f"{kind} {number + 1} needs name = \"...\" (letters, digits, _ and -)", (kind,), number)
+        if name in set(taken):
+            self.fail(f"two {kind}s are named '{name}'", (kind,), number, "name")
+        return name
+
     def read_aggressors(self) -> tuple[AggressorSpec, ...]:
         aggressors = []
         for number, entry in enumerate(self.array("aggressor")):
             table = ("aggressor",)
             self.check_keys(entry, _AGGRESSOR_KEYS, f"aggressor {number + 1}", table, number)
-            name = entry.get("name")
-            if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9_\-]+", name):
-                self.fail(f"aggressor {number + 1} needs name = \"...\" (letters, digits, _ and -)", table, number)
-            if any(a.name == name for a in aggressors):
-                self.fail(f"two aggressors are named '{name}'", table, number, "name")
+            name = self.unique_name(entry, "aggressor", number, (a.name for a in aggressors))
             what = f"aggressor '{name}'"
             current = entry.get("current")
             if not isinstance(current, str) or not current.strip():
@@ -849,11 +854,7 @@ class _Loader:
         for number, entry in enumerate(self.array("probe")):
             table = ("probe",)
             self.check_keys(entry, _PROBE_KEYS, f"probe {number + 1}", table, number)
-            name = entry.get("name")
-            if not isinstance(name, str) or not re.fullmatch(r"[A-Za-z0-9_\-]+", name):
-                self.fail(f"probe {number + 1} needs name = \"...\" (letters, digits, _ and -)", table, number)
-            if any(p.name == name for p in probes):
-                self.fail(f"two probes are named '{name}'", table, number, "name")
+            name = self.unique_name(entry, "probe", number, (p.name for p in probes))
             what = f"probe '{name}'"
             for needed in ("plus", "minus", "instrument"):
                 if needed not in entry:

@@ -261,8 +261,8 @@ class _Synthesis:
         self.mutual_couplings()
         probes, probe_mutuals, loop_mutuals = [], {}, {}
         for setup in self.graph.probes:
-            probes.append(self.probe(setup))
             leads, path = self.mutuals_of(setup)
+            probes.append(self.probe(setup, leads, path))
             probe_mutuals[setup.name] = leads
             loop_mutuals[setup.name] = {cid: leads[cid] - path[cid] for cid in leads}
         self.lines.append(
@@ -416,12 +416,11 @@ class _Synthesis:
             {c.id: float(path[self.index[c.id]]) for c in self.carrying},
         )
 
-    def probe(self, setup) -> ProbeNodes:
+    def probe(self, setup, mutuals: Mapping[str, float], local_mutuals: Mapping[str, float]) -> ProbeNodes:
         """Zero-area reference, lead loop, EMF and instrument model of one probe."""
         book, c, instrument = self.book, self.conductors[setup.conductor], setup.instrument
         plus, minus = self.node_of[setup.plus], self.node_of[setup.minus]
         p = self.index[c.id]
-        mutuals, local_mutuals = self.mutuals_of(setup)
         name = setup.name
         self.lines.append(f"* probe {name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
         local_emf = self.emf_sum(f"{name}_local", local_mutuals, f"local:{name}")
