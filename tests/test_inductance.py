@@ -216,7 +216,7 @@ class TestLumpedInductance:
         """Nagaoka's coefficient agrees with Maxwell's loops integrated over a current sheet."""
         a, l = 0.01, 0.02
         # current sheet = coaxial loops of density N/l: L = (N/l)^2 2 int_0^l (l - z) M(z) dz (scipy.integrate.quad)
-        sheet, _ = integrate.quad(lambda z: 2 * (l - z) * maxwell(a, a, z), 0.0, l, limit=200, epsabs=0.0, epsrel=1e-11)
+        sheet, _ = integrate.quad(lambda z: 2 * (l - z) * maxwell(a, a, z), 0.0, l, limit=200, epsabs=0.0, epsrel=1e-9)
         assert nagaoka(a, l) * MU0 * np.pi * a * a / l == pytest.approx(sheet / l**2, rel=1e-7)
 
     def test_ring_around_long_coil(self):
