@@ -392,7 +392,8 @@ def _pair_integral(a0, a1, ua, la, b0, b1, ub, lb) -> tuple[np.ndarray, np.ndarr
     Components come as 3-sequences of broadcastable arrays; entries under the mask are
     meaningless and must be replaced by :func:`_parallel_integral`.
     """
-    with np.errstate(divide="ignore", invalid="ignore"):
+    # overflow, like 0/0, happens only under the parallel mask (sin < 1e-8), whose entries are replaced
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         wx, wy, wz = b0[0] - a0[0], b0[1] - a0[1], b0[2] - a0[2]
         r11 = np.sqrt(wx * wx + wy * wy + wz * wz)
         r12 = _distance(a0, b1)
