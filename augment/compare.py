@@ -64,10 +64,17 @@ class Comparison:
 def _node_voltage(vectors: Mapping[str, np.ndarray], node: str, size: int, which: str) -> np.ndarray:
     if node == "0":
         return np.zeros(size)
-    try:
-        return np.asarray(vectors[node.lower()])
-    except KeyError:
-        raise SimulatorError(f"the {which} simulation has no vector for node '{node}'") from None
+    # ngspice names the vector of a node that starts with a digit v(NODE), others NODE
+    for key in (node.lower(), f"v({node.lower()})"):
+        if key in vectors:
+            return np.asarray(vectors[key])
+    raise SimulatorError(f"the {which} simulation has no vector for node '{node}'")
+
+
+def _across(vectors: Mapping[str, np.ndarray], nodes: tuple[str, str], size: int) -> np.ndarray:
+    """V(node) - V(reference) of a reading of the augmented run."""
+    node, reference = nodes
+    return _node_voltage(vectors, node, size, "augmented") - _node_voltage(vectors, reference, size, "augmented")
 
 
 def _base(vectors: Mapping[str, np.ndarray], analysis: str) -> np.ndarray:
@@ -194,8 +201,8 @@ def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Map
             ideal = np.interp(base, ideal_base, ideal.real) + (
                 1j * np.interp(base, ideal_base, ideal.imag) if np.iscomplexobj(ideal) else 0
             )
-        local = _node_voltage(augmented_vectors, probe.local_node, size, "augmented")
-        probed = _node_voltage(augmented_vectors, probe.probed_node, size, "augmented")
+        local = _across(augmented_vectors, probe.local, size)
+        probed = _across(augmented_vectors, probe.probed, size)
         contributions = sorted(
             (
                 Contribution(cid, m, float(np.max(np.abs(m * derivative[cid]))) if size else 0.0)

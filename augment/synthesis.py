@@ -8,9 +8,11 @@ How a probe reads (Romer, Am. J. Phys. 50(12), 1982): the instrument sees the po
 difference of its two points minus the EMF induced along its own leads,
 ``V_inst = V(plus) - V(minus) - L_p di_p/dt - sum_j M_pj dI_j/dt``. By default the probe is
 coupled one way (PHYSICS.md): a high-impedance probe draws almost no current, so its leads do
-not act back on the circuit; the EMF is built from linear controlled sources fed by
-dI_j/dt of each current-carrying conductor, and the probe loop's own self inductance stays a
-real inductor so the lead rings with the instrument's input capacitance.
+not act back on the circuit. The probe loop's own self inductance stays a real inductor,
+so the lead rings with the instrument's input capacitance, and the EMF is added across it
+by current-controlled current sources: each carries (M_pj / L_p) I_j of a conductor's
+sensed current around the inductor, which adds M_pj dI_j/dt to its voltage and nothing to
+the circuit. Each source adds entries to the matrix but no unknown, which keeps ngspice fast.
 """
 
 from __future__ import annotations
@@ -27,9 +29,10 @@ from augment.errors import Location, NetlistError
 from augment.inductance import InductanceMatrix, check_positive_definite, coupling_coefficients
 from augment.netlist import Element, Netlist, write_netlist
 
-# Each probe's EMF is summed as a voltage across an inductor of this value fed by currents
-# (M_pj / SUM_HENRY) I_j: gains of order one for nanohenry mutuals.
-SUM_HENRY = 1e-9
+# The EMF of a reading with no inductance of its own (ideal instrument, zero-area path) is
+# made across an inductor of this value that carries only the EMF currents
+# (M_pj / EMF_HENRY) I_j: gains of order one for nanohenry mutuals.
+EMF_HENRY = 1e-9
 CURRENT_CARRYING = ("wire", "body", "coil", "aggressor")
 ANALYSIS_KINDS = ("tran", "ac", "dc", "op", "noise")
 
@@ -50,8 +53,9 @@ class ProbeNodes:
     name: str
     plus_net: str  # original node of the plus point (for the ideal reading)
     minus_net: str
-    probed_node: str  # node whose voltage (to ground) is the probed reading
-    local_node: str  # node whose voltage is the zero-area reading
+    # (node, reference node): the reading is V(node) - V(reference) in the augmented run
+    probed: tuple[str, str]  # at the instrument input
+    local: tuple[str, str]  # of the zero-area path
     instrument: object  # the side-file's Instrument
     conductor: str  # the probe loop's conductor id
     lead_length_m: float
@@ -377,34 +381,35 @@ class _Synthesis:
             self.lines.append(f"{self.book.claim(f'KX_{n}')} {names[a]} {names[b]} {kij:.9g} $ {a} ~ {b}")
         self.couplings = len(kept)
 
-    def emf_sum(self, label: str, mutuals: Mapping[str, float], cid: str) -> str | None:
-        """A node whose voltage is sum_j M_j dI_j/dt, from linear sources only; None if all M are 0.
+    def emf_across(self, inductor: str, start: str, end: str, henry: float, mutuals: Mapping[str, float],
+                   cid: str) -> None:
+        """Current sources across ``inductor`` (``start`` to ``end``) adding sum_j M_j dI_j/dt.
 
-        Each conductor's sensed current, scaled by M_j / SUM_HENRY, is injected into one
-        SUM_HENRY inductor to ground: its voltage is SUM_HENRY d/dt(sum_j M_j I_j / SUM_HENRY).
-        Nothing here loads the circuit.
+        Each source takes (M_j / henry) I_j from ``end`` back to ``start``, so the inductor
+        carries that current too: V(start) - V(end) = henry di/dt + sum_j M_j dI_j/dt, where
+        i is what the rest of the circuit sends through the pair. The source currents close
+        inside the pair, so nothing else sees them: the coupling stays one way.
         """
-        terms = [(j, m) for j, m in mutuals.items() if m != 0.0]
-        if not terms:
-            return None
-        node = self.book.claim(f"s_{label}")
-        for j, m in terms:
-            self.lines.append(
-                f"{self.book.claim(f'FX_{label}')} 0 {node} {self.sense_of[j]} {_value(m / SUM_HENRY)} $ {cid} <- {j}"
-            )
-        self.lines.append(f"{self.book.claim(f'LX_S_{label}')} {node} 0 {_value(SUM_HENRY)} $ {cid} EMF sum")
-        return node
+        for j, m in mutuals.items():
+            if m != 0.0:
+                self.lines.append(
+                    f"{self.book.claim(f'FX_{inductor[3:]}')} {end} {start} {self.sense_of[j]} "
+                    f"{_value(m / henry)} $ {cid} <- {j}"
+                )
 
-    def reading(self, label: str, plus: str, minus: str, emf: str | None, cid: str, what: str) -> str:
-        """A node at V(plus) - V(minus) - V(emf): what an open-circuit instrument reads."""
-        out = self.book.claim(f"r_{label}")
-        if emf is None:
-            self.lines.append(f"{self.book.claim(f'EX_{label}')} {out} 0 {plus} {minus} 1 $ {cid} {what}")
-            return out
-        across = self.book.claim(f"x_{label}")
-        self.lines.append(f"{self.book.claim(f'EX_{label}')} {across} 0 {plus} {minus} 1 $ {cid} {what}")
-        self.lines.append(f"{self.book.claim(f'EX_{label}')} {out} {across} {emf} 0 -1 $ {cid} minus the EMF")
-        return out
+    def emf_reading(self, label: str, plus: str, mutuals: Mapping[str, float], cid: str) -> str:
+        """A node at V(plus) - sum_j M_j dI_j/dt that draws no current; ``plus`` when every M is 0.
+
+        The node hangs on an EMF_HENRY inductor from ``plus`` and nothing else, so the
+        inductor carries only the currents of :meth:`emf_across`.
+        """
+        if not any(m != 0.0 for m in mutuals.values()):
+            return plus
+        node = self.book.claim(f"r_{label}")
+        inductor = self.book.claim(f"LX_S_{label}")
+        self.lines.append(f"{inductor} {plus} {node} {_value(EMF_HENRY)} $ {cid} carries only the EMF currents")
+        self.emf_across(inductor, plus, node, EMF_HENRY, mutuals, cid)
+        return node
 
     def mutuals_of(self, setup) -> tuple[dict[str, float], dict[str, float]]:
         """Partial mutuals of a probe's leads, and of its straight zero-area path, with each
@@ -423,43 +428,33 @@ class _Synthesis:
         p = self.index[c.id]
         name = setup.name
         self.lines.append(f"* probe {name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
-        local_emf = self.emf_sum(f"{name}_local", local_mutuals, f"local:{name}")
-        local_node = self.reading(f"{name}_local", plus, minus, local_emf, f"local:{name}", "zero-area path")
-        probed_node = f"r_{name}_probed"
+        local = (self.emf_reading(f"{name}_local", plus, local_mutuals, f"local:{name}"), minus)
         if name not in self.probe_inductors:
-            # ideal instrument: open circuit sensed by controlled sources
-            emf = self.emf_sum(f"{name}_leads", mutuals, c.id)
-            tip = self.reading(f"{name}_tip" if instrument.bandwidth else f"{name}_probed", plus, minus, emf, c.id,
-                               "ideal instrument")
+            # ideal instrument: an open circuit, read as node voltages
+            tip = self.emf_reading(f"{name}_leads", plus, mutuals, c.id)
         else:
-            a = book.claim(f"p_{name}_a")
-            self.lines.append(
-                f"{self.probe_inductors[name]} {plus} {a} {_value(self.henry[p, p])} $ {c.id} loop self inductance"
-            )
+            tip = book.claim(f"p_{name}")
+            inductor = self.probe_inductors[name]
+            self.lines.append(f"{inductor} {plus} {tip} {_value(self.henry[p, p])} $ {c.id} loop self inductance")
             self.inductors += 1
-            emf = None if self.options.coupling == "full" else self.emf_sum(f"{name}_leads", mutuals, c.id)
-            if emf is None:
-                inside = a  # with full coupling the K lines carry the EMF
-            else:
-                inside = book.claim(f"p_{name}_b")
-                self.lines.append(f"{book.claim('EX_E_' + name)} {inside} {a} {emf} 0 -1 $ {c.id} induced EMF, one way")
-            self.lines.extend(_instrument_lines(name, instrument, inside, minus, book, c.id))
-            tip = self.reading(f"{name}_tip" if instrument.bandwidth else f"{name}_probed", inside, minus, None, c.id,
-                               "reading at the tip")
+            if self.options.coupling != "full":  # with full coupling the K lines carry the EMF
+                self.emf_across(inductor, plus, tip, self.henry[p, p], mutuals, c.id)
+            self.lines.extend(_instrument_lines(name, instrument, tip, minus, book, c.id))
+        probed = (tip, minus)
         if instrument.bandwidth:
-            # single-pole limit of the instrument, after the tip
-            probed_node = book.claim(probed_node)
+            # single-pole limit of the instrument, after the tip, buffered so it loads nothing
+            across, probed_node = book.claim(f"x_{name}_tip"), book.claim(f"r_{name}_probed")
             cap = 1.0 / (2 * math.pi * 1e3 * instrument.bandwidth)
-            self.lines.append(f"{book.claim('RX_W_' + name)} {tip} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
+            self.lines.append(f"{book.claim('EX_W_' + name)} {across} 0 {tip} {minus} 1 $ {c.id} reading at the tip")
+            self.lines.append(f"{book.claim('RX_W_' + name)} {across} {probed_node} 1k $ {c.id} bandwidth {instrument.bandwidth:g} Hz")
             self.lines.append(f"{book.claim('CX_W_' + name)} {probed_node} 0 {_value(cap)} $ {c.id}")
-        else:
-            probed_node = tip
+            probed = (probed_node, "0")
         return ProbeNodes(
             name=name,
             plus_net=self.graph.junctions[setup.plus].net,
             minus_net=self.graph.junctions[setup.minus].net,
-            probed_node=probed_node,
-            local_node=local_node,
+            probed=probed,
+            local=local,
             instrument=instrument,
             conductor=c.id,
             lead_length_m=c.length_m,

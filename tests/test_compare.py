@@ -101,14 +101,14 @@ class TestBandAnalytic:
 def _augmented(probe: ProbeNodes, mutual: float) -> Augmented:
     return Augmented(
         text="", original_text="", analysis="tran", probes=(probe,),
-        current_vectors={"wire:n1:1": "vx_s_w#branch"}, probe_mutuals={probe.name: {"wire:n1:1": mutual}},
+        current_vectors={"wire:n1:1": "lx_w#branch"}, probe_mutuals={probe.name: {"wire:n1:1": mutual}},
         loop_mutuals={probe.name: {"wire:n1:1": mutual}},
         inductor_names={}, inductors=0, couplings=0,
     )
 
 
 PROBE = ProbeNodes(
-    name="p", plus_net="a", minus_net="0", probed_node="r_p_probed", local_node="r_p_local",
+    name="p", plus_net="a", minus_net="0", probed=("r_p_probed", "0"), local=("r_p_local", "0"),
     instrument=BUILTIN_INSTRUMENTS["ideal"], conductor="probe:p", lead_length_m=0.1,
 )
 
@@ -123,7 +123,7 @@ class TestCompare:
         augmented = {
             "time": t, "r_p_probed": probed, "r_p_local": ideal,
             # a 2 A/us ramp in wire:n1:1
-            "vx_s_w#branch": 2.0 * t / 1e-6,
+            "lx_w#branch": 2.0 * t / 1e-6,
         }
         comparison = compare(_augmented(PROBE, 5e-9), original, augmented)
         (reading,) = comparison.readings
@@ -141,7 +141,7 @@ class TestCompare:
         t = np.linspace(0, 1e-6, 101)
         coarse = np.linspace(0, 1e-6, 11)
         original = {"time": coarse, "a": coarse * 1e6}
-        augmented = {"time": t, "r_p_probed": t * 1e6, "r_p_local": t * 1e6, "vx_s_w#branch": np.zeros_like(t)}
+        augmented = {"time": t, "r_p_probed": t * 1e6, "r_p_local": t * 1e6, "lx_w#branch": np.zeros_like(t)}
         (reading,) = compare(_augmented(PROBE, 0.0), original, augmented).readings
         np.testing.assert_allclose(reading.ideal, t * 1e6, atol=1e-12)
 
@@ -151,7 +151,7 @@ class TestCompare:
         ideal = 1 / (1 + 1j * f / 1e5)
         probed = ideal * 1.1
         original = {"frequency": f, "a": ideal}
-        augmented = {"frequency": f, "r_p_probed": probed, "r_p_local": ideal, "vx_s_w#branch": np.zeros(31, complex)}
+        augmented = {"frequency": f, "r_p_probed": probed, "r_p_local": ideal, "lx_w#branch": np.zeros(31, complex)}
         ac = replace(_augmented(PROBE, 0.0), analysis="ac")
         comparison = compare(ac, original, augmented)
         row = summary(comparison, comparison.readings[0])

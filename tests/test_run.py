@@ -412,5 +412,18 @@ class TestLocalReading:
         comparison, _, augmented = simulate_and_compare(built, simulator)
         (reading,) = comparison.readings
         # Ohm's law on the load: the current through RL's body times 1 kohm
-        current = np.asarray(augmented.vectors["vx_s_b_rl#branch"])
+        current = np.asarray(augmented.vectors[built.augmented.current_vectors["body:RL"]])
         np.testing.assert_allclose(reading.local, current * 1e3, atol=1e-6 * np.max(np.abs(reading.local)))
+
+
+class TestNumberedNodes:
+    def test_nodes_named_by_numbers_are_read(self, write_case, simulator):
+        """Nodes 1, 2, 0 (SPICE's oldest habit) give readings; ngspice names their vectors v(1), v(2)."""
+        numbered = FAST_EDGE_NETLIST.replace(" src ", " 1 ").replace(" src", " 1").replace(" out", " 2")
+        assert "RL 2 0 1k" in numbered
+        netlist, sidefile = write_case(numbered, LONG_GROUND_SIDEFILE)
+        _, readings, _ = _readings(netlist, sidefile, simulator)
+        reading = readings["long_ground"]
+        # Ohm's law on the divider: 1 V * 1000 / 1001 once the edge has settled
+        assert np.max(reading.ideal) == pytest.approx(1000 / 1001, rel=1e-4)
+        assert np.max(np.abs(reading.local)) == pytest.approx(1000 / 1001, rel=0.05)
