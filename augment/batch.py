@@ -145,8 +145,7 @@ def load_plan(path: str | Path) -> Plan:
     return Plan(path, tuple(cases))
 
 
-def run_case(name: str, netlist: str, sidefile: str, out_dir: str | None, force: bool = False,
-             timeout_s: float = 300.0) -> dict:
+def run_case(name: str, netlist: str, sidefile: str, out_dir: str | None, timeout_s: float = 300.0) -> dict:
     """Run one case on this process's simulator and return its row; never raises.
 
     This is the task sent to local workers and to Dask workers alike: plain arguments in,
@@ -174,7 +173,7 @@ def run_case(name: str, netlist: str, sidefile: str, out_dir: str | None, force:
 
             simulator = _OWN.simulator = Simulator(timeout_s=timeout_s)
         simulator.timeout_s = timeout_s
-        document = run(netlist, sidefile, out_dir, force=force, timeout_s=timeout_s, simulator=simulator)
+        document = run(netlist, sidefile, out_dir, timeout_s=timeout_s, simulator=simulator)
     except AugmentError as error:
         row.update(status="error", exit_code=error.exit_code, message=str(error))
     except Exception as error:  # noqa: BLE001 - a fault of ours must not stop the other cases
@@ -187,7 +186,7 @@ def run_case(name: str, netlist: str, sidefile: str, out_dir: str | None, force:
 
 
 def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: str | None,
-             junit: Path | None, force: bool, timeout_s: float = 300.0) -> int:
+             junit: Path | None, timeout_s: float = 300.0) -> int:
     """Run every case of a plan and write the summary; returns the exit code.
 
     Parameters
@@ -196,16 +195,14 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
         The plan file (TOML); paths in it are relative to its folder.
     out_dir : Path or None
         Folder for ``summary.csv`` and one report folder per case (default
-        ``PLANSTEM-batch`` in the current folder). An existing non-empty folder needs
-        ``force``.
+        ``PLANSTEM-batch`` in the current folder). Into an existing folder the files of
+        this batch go beside what is there, replacing those of an earlier run.
     jobs : int or None
         Local worker processes (default: the number of cores); ignored with ``scheduler``.
     scheduler : str or None
         Address of a Dask distributed scheduler to run the cases on instead.
     junit : Path or None
         Where to write a JUnit XML file, one test case per plan case.
-    force : bool
-        Replace an existing batch folder's contents.
     timeout_s : float
         Longest wait for one simulation.
 
@@ -226,9 +223,9 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
 
     checked = load_plan(plan)
     out = Path(out_dir) if out_dir is not None else Path(f"{Path(plan).stem}-batch")
-    _check_out_dir(out, checked, junit, force)
+    _check_out_dir(out, checked, junit)
     out.mkdir(parents=True, exist_ok=True)
-    tasks = [(case.name, str(case.netlist), str(case.sidefile), str(out / case.name), force, timeout_s)
+    tasks = [(case.name, str(case.netlist), str(case.sidefile), str(out / case.name), timeout_s)
              for case in checked.cases]
     finished: dict[str, dict] = {}
     interrupted = False
@@ -469,13 +466,17 @@ class _Locator:
         return first, last
 
 
-def _check_out_dir(out: Path, plan: Plan, junit: Path | None, force: bool) -> None:
+def _check_out_dir(out: Path, plan: Plan, junit: Path | None) -> None:
     from augment.pipeline import check_output_folder
 
     inputs = [plan.path, *(p for case in plan.cases for p in (case.netlist, case.sidefile))]
-    if junit is not None and junit.resolve() in {p.resolve() for p in inputs}:
+    resolved = {p.resolve() for p in inputs}
+    if junit is not None and junit.resolve() in resolved:
         raise OptionError(str(junit), "refusing to overwrite an input file; choose another --junit")
-    check_output_folder(out, inputs, force, what="batch folder", relation="holds")
+    check_output_folder(out, inputs)
+    for written in (out / "summary.csv", *(out / case.name for case in plan.cases)):
+        if written.resolve() in resolved:
+            raise OptionError(str(out), f"the batch would replace the input {written}; choose another -o")
 
 
 def _local_rows(tasks: list[tuple], jobs: int | None) -> Iterator[dict]:

@@ -24,7 +24,8 @@ class _Group(click.Group):
         except AugmentError as error:
             if ctx.obj and ctx.obj.get("debug"):
                 raise
-            click.echo(f"error: {error}", err=True)
+            # the message starts with where: file:line:column, an option or a path
+            click.echo(str(error), err=True)
             sys.exit(error.exit_code)
         except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
             raise
@@ -38,7 +39,8 @@ class _Group(click.Group):
             sys.exit(2)
 
 
-_existing = click.Path(exists=True, dir_okay=False, readable=True)
+# existence is checked by the loaders, whose errors carry file:line:column like any other bad input
+_existing = click.Path(dir_okay=False)
 
 
 def _synthesis_options(coupling: str, kmin: float, analysis: str | None):
@@ -124,19 +126,18 @@ def build(netlist, sidefile, output, coupling, kmin, analysis):
 @_sidefile_opt
 @click.option("-o", "--output", "out_dir", type=click.Path(file_okay=False), help="Report folder (default NETLIST-report).")
 @click.option("--json", "as_json", is_flag=True, help="Print the result document on stdout.")
-@click.option("--force", is_flag=True, help="Replace an existing report folder.")
 @click.option("--timeout", type=click.FloatRange(min=1), default=300.0, show_default=True, help="Seconds per simulation.")
 @_coupling_opt
 @_kmin_opt
 @_analysis_opt
-def run(netlist, sidefile, out_dir, as_json, force, timeout, coupling, kmin, analysis):
+def run(netlist, sidefile, out_dir, as_json, timeout, coupling, kmin, analysis):
     """Simulate ideal and augmented, compare, and write the report folder."""
     from augment.pipeline import run as run_pipeline
     from augment.report import format_probe_table
 
     out = Path(out_dir) if out_dir else Path(f"{Path(netlist).stem}-report")
     document = run_pipeline(
-        netlist, sidefile, out, _synthesis_options(coupling, kmin, analysis), force=force, timeout_s=timeout
+        netlist, sidefile, out, _synthesis_options(coupling, kmin, analysis), timeout_s=timeout
     )
     _warn(document["warnings"])
     if as_json:
@@ -187,14 +188,13 @@ def view(netlist, sidefile, output):
 @click.option("--jobs", type=click.IntRange(min=1), default=None, help="Local worker processes (default: cores).")
 @click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler to run the cases on.")
 @click.option("--junit", type=click.Path(dir_okay=False), default=None, help="Write a JUnit XML file, one test case per plan case.")
-@click.option("--force", is_flag=True, help="Replace existing case reports.")
 @click.option("--timeout", type=click.FloatRange(min=1), default=300.0, show_default=True, help="Seconds per simulation.")
-def batch(plan, out_dir, jobs, scheduler, junit, force, timeout):
+def batch(plan, out_dir, jobs, scheduler, junit, timeout):
     """Run every case of a plan; one summary table; exit 1 when a limit is broken."""
     from augment.batch import run_plan
 
     code = run_plan(Path(plan), Path(out_dir) if out_dir else None, jobs=jobs, scheduler=scheduler,
-                    junit=Path(junit) if junit else None, force=force, timeout_s=timeout)
+                    junit=Path(junit) if junit else None, timeout_s=timeout)
     sys.exit(code)
 
 

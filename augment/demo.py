@@ -20,7 +20,7 @@ CASES = (  # (report folder, netlist, side-file, what it shows)
 def run_demo(out_dir: Path) -> list[dict]:
     """Run every built-in scenario into ``out_dir/NAME`` and print a table for each.
 
-    The demo replaces its own report folders from an earlier run.
+    A report replaces the files of the demo's own earlier run.
     """
     from augment.pipeline import SAFETY_NOTE, run
     from augment.report import format_probe_table
@@ -28,7 +28,7 @@ def run_demo(out_dir: Path) -> list[dict]:
     documents = []
     for name, netlist, sidefile, what in CASES:
         click.echo(f"== {name}: {what}")
-        document = run(SCENARIOS / netlist, SCENARIOS / sidefile, out_dir / name, force=True)
+        document = run(SCENARIOS / netlist, SCENARIOS / sidefile, out_dir / name)
         for line in document["warnings"]:
             click.echo(f"warning: {line}", err=True)
         click.echo(format_probe_table(document))

@@ -132,7 +132,6 @@ def run(
     out_dir: str | Path | None,
     options: SynthesisOptions = SynthesisOptions(),
     *,
-    force: bool = False,
     timeout_s: float = 300.0,
     simulator=None,
 ) -> dict:
@@ -147,7 +146,7 @@ def run(
     start = time.perf_counter()
     inputs = [Path(netlist_path), Path(sidefile_path)]
     if out_dir is not None:
-        check_output_folder(Path(out_dir), inputs, force)
+        check_output_folder(Path(out_dir), inputs)
     built = build(netlist_path, sidefile_path, options)
     if simulator is None:
         with Simulator(timeout_s=timeout_s) as own:
@@ -156,21 +155,15 @@ def run(
         comparison, _, _ = simulate_and_compare(built, simulator)
     document = result_document(built, comparison, sidefile_path, time.perf_counter() - start)
     if out_dir is not None:
-        write_report(Path(out_dir), built, comparison, document, force=force)
+        write_report(Path(out_dir), built, comparison, document, protected=inputs)
     return document
 
 
-def check_output_folder(out_dir: Path, inputs: list[Path], force: bool, what: str = "report folder",
-                        relation: str = "would hold or replace") -> None:
-    """Refuse an output folder that is a file, holds an input, or has contents without --force."""
+def check_output_folder(out_dir: Path, inputs: list[Path]) -> None:
+    """Refuse an output folder that is an input or another file, before any work is done."""
     from augment.errors import OptionError
 
-    resolved = out_dir.resolve()
-    for path in inputs:
-        p = path.resolve()
-        if p == resolved or resolved in p.parents:
-            raise OptionError(str(out_dir), f"the {what} {relation} the input {path}; choose another -o")
     if out_dir.exists() and not out_dir.is_dir():
-        raise OptionError(str(out_dir), "exists and is not a folder")
-    if out_dir.exists() and any(out_dir.iterdir()) and not force:
-        raise OptionError(str(out_dir), f"{what} exists and is not empty; use --force to replace it")
+        named = next((path for path in inputs if path.resolve() == out_dir.resolve()), None)
+        what = f"is the input {named}" if named is not None else "exists and is not a folder"
+        raise OptionError(str(out_dir), f"{what}; choose another -o")

@@ -10,12 +10,14 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from augment.conductors import ConductorGraph
+from augment.errors import OptionError
 from augment.units import engineering
 
 # Colours by kind; nets take colours from a qualitative cycle.
@@ -164,22 +166,34 @@ def _umask() -> int:
 
 
 def _atomic_folder(out_dir: Path):
-    """A fresh temporary folder beside ``out_dir``; ``_commit_folder`` moves it into place."""
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    """A fresh temporary folder on ``out_dir``'s file system; ``_commit_folder`` moves it into place."""
+    home = out_dir if out_dir.is_dir() else out_dir.parent
+    home.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=home))
     # mkdtemp makes it private; the report should get the modes any new folder gets
     os.chmod(tmp, 0o777 & ~_umask())
     return tmp
 
 
-def _commit_folder(tmp: Path, out_dir: Path) -> None:
-    old = None
-    if out_dir.exists():
-        old = out_dir.with_name(f".{out_dir.name}.old-{os.getpid()}")
-        os.replace(out_dir, old)
-    os.replace(tmp, out_dir)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+def _commit_folder(tmp: Path, out_dir: Path, protected: Iterable[Path]) -> None:
+    """Rename ``tmp`` to ``out_dir``, or, when that folder exists, move each file into it.
+
+    Files of the same names are replaced and other files are kept. Before anything moves,
+    a file that would replace one of ``protected`` (the inputs) or a folder stops it.
+    """
+    if not out_dir.exists():
+        os.replace(tmp, out_dir)
+        return
+    keep = {Path(p).resolve() for p in protected}
+    for entry in tmp.iterdir():
+        target = out_dir / entry.name
+        if target.resolve() in keep:
+            raise OptionError(str(out_dir), f"the report's {entry.name} would replace the input {target}; choose another -o")
+        if target.is_dir():
+            raise OptionError(str(out_dir), f"the report's {entry.name} would replace the folder {target}; choose another -o")
+    for entry in tmp.iterdir():
+        os.replace(entry, out_dir / entry.name)
+    tmp.rmdir()
 
 
 def readings_columns(comparison) -> dict[str, np.ndarray]:
@@ -269,11 +283,13 @@ def plot_reading(comparison, reading, path: Path) -> None:
     fig.savefig(path, dpi=110)
 
 
-def write_report(out_dir: Path, built, comparison, document: dict, *, force: bool = False) -> Path:
+def write_report(out_dir: Path, built, comparison, document: dict, protected: Iterable[Path] = ()) -> Path:
     """Write the report folder: augmented netlist, readings.csv, summary.csv, result.json, PNGs.
 
-    Everything is written into a temporary folder beside ``out_dir`` and moved into place at
-    the end, so an interrupted run never leaves a half-written report.
+    Everything is written into a temporary folder first and moved into place at the end,
+    so an interrupted run never leaves a half-written report. Into an existing folder the
+    report's files go one by one, replacing those of an earlier report and keeping anything
+    else; ``protected`` (the inputs) are never replaced.
     """
     tmp = _atomic_folder(out_dir)
     try:
@@ -289,7 +305,7 @@ def write_report(out_dir: Path, built, comparison, document: dict, *, force: boo
         for reading in comparison.readings:
             plot_reading(comparison, reading, tmp / f"{reading.probe.name}.png")
         (tmp / "CAUTION.txt").write_text(document["caution"] + "\n")
-        _commit_folder(tmp, out_dir)
+        _commit_folder(tmp, out_dir, protected)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise

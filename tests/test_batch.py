@@ -121,7 +121,7 @@ def local_run(tmp_path_factory):
     plan = _scenario(folder / "in")
     out = folder / "out"
     junit = folder / "junit.xml"
-    code = run_plan(plan, out, jobs=2, scheduler=None, junit=junit, force=False)
+    code = run_plan(plan, out, jobs=2, scheduler=None, junit=junit)
     return {"plan": plan, "out": out, "junit": junit, "code": code, "rows": _summary(out)}
 
 
@@ -130,7 +130,7 @@ def compare_run(tmp_path_factory):
     """The plan comparing two setups on one netlist, run once with two local workers."""
     folder = tmp_path_factory.mktemp("compare")
     plan = _scenario(folder / "in", COMPARE_PLAN)
-    code = run_plan(plan, folder / "out", jobs=2, scheduler=None, junit=None, force=False)
+    code = run_plan(plan, folder / "out", jobs=2, scheduler=None, junit=None)
     return {"out": folder / "out", "code": code, "rows": _summary(folder / "out")}
 
 
@@ -363,7 +363,7 @@ class TestRunPlan:
 
     def test_same_numbers_with_one_job(self, local_run, tmp_path):
         """One worker gives the same summary.csv, byte for byte, as two."""
-        code = run_plan(local_run["plan"], tmp_path / "one", jobs=1, scheduler=None, junit=None, force=False)
+        code = run_plan(local_run["plan"], tmp_path / "one", jobs=1, scheduler=None, junit=None)
         assert code == 1
         assert (tmp_path / "one" / "summary.csv").read_text() == (local_run["out"] / "summary.csv").read_text()
 
@@ -373,7 +373,7 @@ class TestRunPlan:
         with distributed.LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1", processes=True,
                                       dashboard_address=None) as cluster:
             code = run_plan(local_run["plan"], tmp_path / "dask", jobs=None, scheduler=cluster.scheduler_address,
-                            junit=None, force=False)
+                            junit=None)
         assert code == 1
         assert (tmp_path / "dask" / "summary.csv").read_text() == (local_run["out"] / "summary.csv").read_text()
 
@@ -399,20 +399,22 @@ class TestRunPlan:
         picture = compare_run["out"] / "setups" / "comparison.png"
         assert picture.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
-    def test_refuses_non_empty_folder_without_force(self, tmp_path):
-        """An existing non-empty output folder is refused before anything runs."""
+    def test_second_batch_into_the_same_folder(self, tmp_path):
+        """A batch run again into its folder replaces its files and keeps the user's own."""
         plan = _scenario(tmp_path / "in")
         (tmp_path / "out").mkdir()
         (tmp_path / "out" / "keep.txt").write_text("mine")
-        with pytest.raises(OptionError, match="not empty; use --force"):
-            run_plan(plan, tmp_path / "out", jobs=1, scheduler=None, junit=None, force=False)
+        for _ in range(2):
+            assert run_plan(plan, tmp_path / "out", jobs=1, scheduler=None, junit=None) in (0, 1)
         assert (tmp_path / "out" / "keep.txt").read_text() == "mine"
+        assert (tmp_path / "out" / "summary.csv").exists()
 
-    def test_refuses_folder_holding_inputs(self, tmp_path):
-        """An output folder that holds the plan's inputs is refused even with force."""
+    def test_refuses_to_replace_an_input(self, tmp_path):
+        """A case folder that would land on an input file is refused before anything runs."""
         plan = _scenario(tmp_path)
-        with pytest.raises(OptionError, match="holds the input"):
-            run_plan(plan, tmp_path, jobs=1, scheduler=None, junit=None, force=True)
+        (tmp_path / "plan.toml").write_text(plan.read_text().replace('name = "good"', 'name = "divider.cir"'))
+        with pytest.raises(OptionError, match="would replace the input"):
+            run_plan(tmp_path / "plan.toml", tmp_path, jobs=1, scheduler=None, junit=None)
 
     def test_interrupt_keeps_finished_rows(self, tmp_path):
         """SIGINT after the first case stops the batch with exit 130 and a summary of what finished."""
@@ -422,7 +424,7 @@ class TestRunPlan:
         script = (f"from pathlib import Path\nfrom augment.batch import run_plan\nimport sys\n"
                   f"if __name__ == '__main__':\n"
                   f"    sys.exit(run_plan(Path({str(plan)!r}), Path({str(tmp_path / 'out')!r}), jobs=1,"
-                  f" scheduler=None, junit=None, force=False))\n")
+                  f" scheduler=None, junit=None))\n")
         process = subprocess.Popen([sys.executable, "-c", script], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                                    text=True)
         first = process.stderr.readline()

@@ -73,11 +73,11 @@ def invoke(*args):
 
 
 def assert_clean_failure(result, code: int, where: str | None = None) -> None:
-    """Exit ``code``, nothing on stdout, one error line on stderr naming ``where``, no traceback."""
+    """Exit ``code``, nothing on stdout, one error line (beside any warnings) naming ``where``, no traceback."""
     assert result.exit_code == code, result.output
     assert "Traceback" not in result.output
     assert result.stdout == ""
-    errors = [line for line in result.stderr.splitlines() if line.startswith("error: ")]
+    errors = [line for line in result.stderr.splitlines() if not line.startswith("warning: ")]
     assert len(errors) == 1, result.stderr
     if where is not None:
         assert where in errors[0]
@@ -236,33 +236,38 @@ class TestRun:
         with pytest.raises(json.JSONDecodeError):
             json.loads(result.stdout)
 
-    def test_existing_report_refused_without_force(self, case, tmp_path):
-        """A non-empty report folder is refused (exit 2) and left exactly as it was."""
+    def test_second_run_replaces_the_first_report(self, case, tmp_path):
+        """Running again into the same folder replaces the report's files and keeps the user's own."""
         report = tmp_path / "report"
         report.mkdir()
         (report / "notes.txt").write_text("mine\n")
-        result = invoke("run", case[0], "-g", case[1], "-o", report, "--json")
-        assert_clean_failure(result, 2, "use --force")
-        assert [p.name for p in report.iterdir()] == ["notes.txt"]
+        first = invoke("run", case[0], "-g", case[1], "-o", report)
+        assert first.exit_code == 0, first.output
+        (report / "result.json").write_text("{}")
+        second = invoke("run", case[0], "-g", case[1], "-o", report, "--json")
+        assert second.exit_code == 0, second.output
+        assert json.loads((report / "result.json").read_text()) == json.loads(second.stdout)
         assert (report / "notes.txt").read_text() == "mine\n"
-
-    def test_existing_report_replaced_with_force(self, case, tmp_path):
-        """With --force the old report folder is replaced as a whole: old files gone, new report there."""
-        report = tmp_path / "report"
-        report.mkdir()
-        (report / "stale.csv").write_text("old\n")
-        result = invoke("run", case[0], "-g", case[1], "-o", report, "--json", "--force")
-        assert result.exit_code == 0, result.output
-        names = {p.name for p in report.iterdir()}
-        assert "stale.csv" not in names and "result.json" in names
+        assert not any(p.name.startswith(".") for p in report.iterdir())
         assert sorted(p.name for p in tmp_path.iterdir()) == ["inputs", "report"]
 
-    def test_report_folder_holding_inputs_refused(self, case):
-        """-o the folder that holds the inputs is refused even with --force; the inputs keep their bytes."""
+    def test_report_into_the_folder_of_the_inputs(self, case):
+        """-o the folder holding the inputs puts the report beside them; the inputs keep their bytes."""
         folder = case[0].parent
         before = {p.name: p.read_bytes() for p in folder.iterdir()}
-        result = invoke("run", case[0], "-g", case[1], "-o", folder, "--force")
-        assert_clean_failure(result, 2, "would hold or replace the input")
+        result = invoke("run", case[0], "-g", case[1], "-o", folder)
+        assert result.exit_code == 0, result.output
+        assert {name: (folder / name).read_bytes() for name in before} == before
+        assert (folder / "result.json").exists() and (folder / "rc.augmented.cir").exists()
+
+    def test_report_file_that_would_replace_an_input_is_refused(self, case):
+        """A side-file named like a report file (summary.csv) stops the move: exit 2, inputs and folder unchanged."""
+        folder = case[0].parent
+        renamed = folder / "summary.csv"
+        case[1].rename(renamed)
+        before = {p.name: p.read_bytes() for p in folder.iterdir()}
+        result = invoke("run", case[0], "-g", renamed, "-o", folder)
+        assert_clean_failure(result, 2, "would replace the input")
         assert {p.name: p.read_bytes() for p in folder.iterdir()} == before
 
     def test_simulator_failure_exits_3(self, case, tmp_path):
