@@ -1,12 +1,13 @@
 # Two commands for users (make demo, make test) and one for developers (make bench).
-# Each bootstraps what is missing: Debian's libngspice0 and a .venv with the package.
+# Each bootstraps what is missing: Debian's libngspice0 and Python venv module, and a
+# .venv with the package.
 
 PYTHON ?= $(shell command -v python3.11 || command -v python3)
 VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test bench bootstrap ngspice clean
+.PHONY: demo test bench bootstrap system clean
 
 demo: bootstrap
 	$(BIN)/augment demo
@@ -17,10 +18,10 @@ test: bootstrap
 bench: bootstrap
 	$(BIN)/python bench/run.py
 
-bootstrap: ngspice $(STAMP)
+bootstrap: system $(STAMP)
 
-ngspice:
-	@sh tools/ensure-ngspice.sh
+system:
+	@sh tools/ensure-system.sh $(PYTHON)
 
 # Reinstalls only when the package metadata changed.
 $(STAMP): pyproject.toml
