@@ -399,6 +399,9 @@ def _limits(table: object, locate: _Locator, index: int | None) -> dict[str, Lim
                 raise PlanError(where, f"limit '{key}' takes a number or a table {{min = ..., max = ...}}")
             minimum = _number(value["min"], key, where) if "min" in value else None
             maximum = _number(value["max"], key, where) if "max" in value else None
+        elif key.endswith("_min"):
+            # a bare number bounds the figure the way its name reads: a minimum from below
+            minimum, maximum = _number(value, key, where), None
         else:
             minimum, maximum = None, _number(value, key, where)
         limits[key] = Limit(key, minimum, maximum, where)

@@ -156,6 +156,14 @@ class TestLoadPlan:
         # SPICE scale factors u = 1e-6, m = 1e-3 (ngspice manual, section 2.4).
         assert limits == {"max_abs_error": (None, pytest.approx(1e-6)), "probed_max": (0.4, 1.5)}
 
+    def test_bare_number_on_a_minimum_is_a_floor(self, tmp_path):
+        """probed_min = -5 bounds probed_min from below; probed_max = 5 from above."""
+        text = GOOD_PLAN.replace('probed_max = { min = 0.4, max = "1.5" }', 'probed_min = -5\nprobed_max = 5')
+        strict = load_plan(_scenario(tmp_path, text)).cases[3]
+        limits = {limit.key: (limit.minimum, limit.maximum) for limit in strict.limits}
+        assert limits["probed_min"] == (-5.0, None)
+        assert limits["probed_max"] == (None, 5.0)
+
     def test_sidefiles_make_one_sub_case_each(self, tmp_path):
         """A case listing several side-files becomes NAME/SIDESTEM per side-file, sharing plan-wide limits."""
         plan = load_plan(_scenario(tmp_path, COMPARE_PLAN))
