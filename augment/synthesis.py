@@ -408,6 +408,7 @@ class _Synthesis:
         node = self.book.claim(f"r_{label}")
         inductor = self.book.claim(f"LX_S_{label}")
         self.lines.append(f"{inductor} {plus} {node} {_value(EMF_HENRY)} $ {cid} carries only the EMF currents")
+        self.inductors += 1
         self.emf_across(inductor, plus, node, EMF_HENRY, mutuals, cid)
         return node
 
