@@ -360,7 +360,8 @@ MATRIX_MAX = 12  # conductors up to which `augment extract` also prints the k ma
 
 
 def format_extraction(document: dict) -> str:
-    """Readable extraction table: each conductor with its strongest couplings."""
+    """Readable extraction: each conductor with its strongest couplings, then (for up to
+    MATRIX_MAX conductors) the lumped inductance matrix in H and the coupling coefficients."""
     strongest: dict[str, list] = {}
     for c in document["couplings"]:
         strongest.setdefault(c["a"], []).append((c["b"], c["k"]))
@@ -377,13 +378,27 @@ def format_extraction(document: dict) -> str:
     ids = [c["id"] for c in document["conductors"]]
     if not 1 < len(ids) <= MATRIX_MAX:
         return table
-    k = {(c["a"], c["b"]): c["k"] for c in document["couplings"]}
-    matrix = [
-        {"": f"[{i + 1}] {a}", **{f"[{j + 1}]": ("1" if a == b else f"{k.get((a, b), k.get((b, a), 0.0)):+.3g}")
-                                 for j, b in enumerate(ids)}}
-        for i, a in enumerate(ids)
-    ]
-    return table + "\n\ncoupling coefficients k:\n" + format_table(matrix, ["", *(f"[{j + 1}]" for j in range(len(ids)))])
+    pairs = {frozenset((c["a"], c["b"])): c for c in document["couplings"]}
+    selfs = {c["id"]: c["henry"] for c in document["conductors"]}
+    columns = ["", *(f"[{j + 1}]" for j in range(len(ids)))]
+
+    def matrix(cell) -> str:
+        rows = [{"": f"[{i + 1}] {a}", **{f"[{j + 1}]": cell(a, b) for j, b in enumerate(ids)}}
+                for i, a in enumerate(ids)]
+        return format_table(rows, columns)
+
+    def henry(a: str, b: str) -> str:
+        value = selfs[a] if a == b else pairs.get(frozenset((a, b)), {}).get("mutual_h", 0.0)
+        return engineering(value, "H") if value else "0"
+
+    def k(a: str, b: str) -> str:
+        if a == b:
+            return "1"
+        pair = pairs.get(frozenset((a, b)))
+        return f"{pair['k']:+.3g}" if pair else "0"
+
+    return (f"{table}\n\nlumped inductance matrix (H):\n{matrix(henry)}"
+            f"\n\ncoupling coefficients k:\n{matrix(k)}")
 
 
 def plot_setup_comparison(setups: list[tuple[str, Path]], path: Path, title: str = "") -> Path:

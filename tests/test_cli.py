@@ -5,6 +5,7 @@ refused outputs and atomic writes (SPEC "Command line" and "Details that the tes
 from __future__ import annotations
 
 import json
+import re
 import os
 import stat
 from pathlib import Path
@@ -307,6 +308,19 @@ class TestExtract:
         assert result.exit_code == 0, result.output
         for conductor in ("wire:out:1", "body:R1", "body:C1", "probe:cap"):
             assert conductor in result.stdout
+
+    def test_table_holds_the_matrix_in_henries(self, case):
+        """The text output has the lumped matrix in H: its diagonal row by row is each conductor's self inductance."""
+        from augment.units import engineering
+
+        document = json.loads(invoke("extract", case[0], "-g", case[1], "--json").stdout)
+        text = invoke("extract", case[0], "-g", case[1]).stdout
+        assert "lumped inductance matrix (H):" in text and "coupling coefficients k:" in text
+        block = text.split("lumped inductance matrix (H):\n")[1].split("\n\n")[0].splitlines()[1:]
+        for index, (row, conductor) in enumerate(zip(block, document["conductors"])):
+            assert row.startswith(f"[{index + 1}] {conductor['id']}")
+            cells = re.split(r"\s{2,}", row.strip())[1:]  # the table pads its columns with spaces
+            assert cells[index] == engineering(conductor["henry"], "H")
 
     def test_json(self, case):
         """--json prints only JSON: conductors with SPEC's keys and couplings with |k| < 1."""
