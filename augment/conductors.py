@@ -391,7 +391,7 @@ class _Builder:
                     if 0.0 < u < len(paths[index]) - 1 and all(abs(u - c) > 1e-9 for c in cuts):
                         cuts.append(u)
             pieces = _cut(paths[index], sorted(cuts))
-            base = f"wire:{wire.net}:{wire.number}"
+            base = wire.id
             for k, piece in enumerate(pieces, start=1):
                 start = self.junctions.at(wire.net, piece[0], tolerance)
                 end = self.junctions.at(wire.net, piece[-1], tolerance)

@@ -150,11 +150,16 @@ class Helix:
 class WireSpec:
     """One ``[[wire]]``: the ``number``-th wire of ``net`` in file order, from 1."""
 
-    net: str
+    net: str  # the netlist node, lower case as ngspice has it ("gnd" is "0")
     number: int
     path: tuple[Point, ...]
     radius: float
     location: Location
+    label: str = ""  # the net as the side-file spells it, for the conductor id
+
+    @property
+    def id(self) -> str:
+        return f"wire:{self.label or self.net}:{self.number}"
 
 
 @dataclass(frozen=True, slots=True)
@@ -730,7 +735,7 @@ class _Loader:
                     if terminal_node != node:
                         self.fail(f"{what} runs to {point.terminal[0]}.{point.terminal[1]}, which is on net "
                                   f"'{terminal_node}': a short the netlist does not have", table, number, "path")
-            wires.append(WireSpec(node, counts[node], path, radius, self.index.where(table, number)))
+            wires.append(WireSpec(node, counts[node], path, radius, self.index.where(table, number), net.strip()))
         return tuple(wires)
 
     def node_of(self, terminal: tuple[str, int]) -> str:

@@ -160,9 +160,10 @@ class TestLoadSidefileText:
         assert "there is no net 'tpo' in the netlist bench.cir" in error.message
 
     def test_net_names_are_case_insensitive(self):
-        """A wire on net 'TOP' belongs to the netlist node 'top'."""
+        """A wire on net 'TOP' belongs to the netlist node 'top' and keeps its spelling in its id."""
         side = load(BASE + WIRE.replace('net = "top"', 'net = "TOP"'))
         assert side.wires[0].net == "top"
+        assert side.wires[0].id == "wire:TOP:1"
 
     def test_terminal_number_must_exist(self):
         """A reference to terminal 3 of a two-terminal resistor is an error."""
