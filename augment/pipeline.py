@@ -98,6 +98,8 @@ def result_document(built: Built, comparison, sidefile_path: str | Path, elapsed
             "resistance": _finite_or_none(instrument.resistance),
             "capacitance": instrument.capacitance,
             "bandwidth": instrument.bandwidth,
+            # beyond SPEC's keys: a differential input's resistance from each side to its reference
+            "reference_resistance": instrument.reference_resistance if instrument.differential else None,
         }
         row["conductor"] = reading.probe.conductor
         row["lead_length_m"] = reading.probe.lead_length_m

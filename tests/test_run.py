@@ -372,6 +372,15 @@ class TestResultDocument:
         header = (tmp_path / "report" / "readings.csv").read_text().splitlines()[0].split(",")
         assert header == ["time", "long_ground:ideal", "long_ground:local", "long_ground:probed"]
 
+    def test_differential_instrument_fields(self, write_case):
+        """The built-in differential instrument shows SPEC's values: 2 pF across, 1 Mohm each side to its reference."""
+        differential = LONG_GROUND_SIDEFILE.replace('"passive-10x"', '"differential"')
+        document = run(*write_case(FAST_EDGE_NETLIST, differential), None)
+        (probe,) = document["probes"]
+        # SPEC, "Built-in instruments" (typical values, common practice)
+        assert probe["instrument"]["capacitance"] == pytest.approx(2e-12)
+        assert probe["instrument"]["reference_resistance"] == pytest.approx(1e6)
+
     def test_max_abs_error_compares_probed_with_ideal(self, write_case, simulator):
         """max_abs_error and rms_error are taken of probed - ideal."""
         netlist, sidefile = write_case(FAST_EDGE_NETLIST, LONG_GROUND_SIDEFILE)
