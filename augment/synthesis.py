@@ -246,6 +246,7 @@ class _Synthesis:
         self.inductor_of: dict[str, str] = {}  # conductor id -> inductor name
         self.sense_of: dict[str, str] = {}  # conductor id -> its 0 V current sense
         self.probe_inductors: dict[str, str] = {}  # probe name -> loop inductor
+        self.local_of: dict[tuple[str, str], tuple[str, str]] = {}  # (plus, minus) -> (probe, reading node)
         self.inductors = 0
         self.couplings = 0
 
@@ -429,7 +430,15 @@ class _Synthesis:
         p = self.index[c.id]
         name = setup.name
         self.lines.append(f"* probe {name} ({c.id}): instrument {instrument.name}, {c.length_m * 1e3:.4g} mm of lead")
-        local = (self.emf_reading(f"{name}_local", plus, local_mutuals, f"local:{name}"), minus)
+        # probes on the same two points share one zero-area reading: the straight path is the same
+        points = (setup.plus, setup.minus)
+        if points in self.local_of:
+            first, node = self.local_of[points]
+            self.lines.append(f"* local:{name} is local:{first}, the same straight path")
+        else:
+            node = self.emf_reading(f"{name}_local", plus, local_mutuals, f"local:{name}")
+            self.local_of[points] = (name, node)
+        local = (node, minus)
         if name not in self.probe_inductors:
             # ideal instrument: an open circuit, read as node voltages
             tip = self.emf_reading(f"{name}_leads", plus, mutuals, c.id)

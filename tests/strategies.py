@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from hypothesis import assume
 from hypothesis import strategies as st
 
 # ---------------------------------------------------------------------------------------
@@ -134,11 +135,21 @@ def segment_pairs(draw):
 
 @st.composite
 def segment_clouds(draw, max_segments: int = 12):
-    """A few separate straight segments (end points in a 10 cm box) with radii and owners."""
+    """A few separate straight segments (end points in a 10 cm box) with radii and owners.
+
+    Separate: no two are parallel (within 1e-6 rad) and closer than twice their radii, where
+    two conductors would share one wire and the lumped matrix turns singular.
+    """
     n = draw(st.integers(2, max_segments))
     starts = _np.array([draw(_point) for _ in range(n)]) * 0.05
     ends = starts + _np.array([draw(_point.filter(lambda p: _np.linalg.norm(p) > 0.2)) for _ in range(n)]) * 0.02
     radii = _np.full(n, 1e-4)
+    i, j = _np.triu_indices(n, 1)
+    u = (ends - starts) / _np.linalg.norm(ends - starts, axis=1)[:, None]
+    sin = _np.linalg.norm(_np.cross(u[i], u[j]), axis=1)
+    offset = starts[j] - starts[i]
+    apart = _np.linalg.norm(offset - _np.sum(offset * u[i], axis=1)[:, None] * u[i], axis=1)
+    assume(not _np.any((sin < 1e-6) & (apart < 2 * (radii[i] + radii[j]))))
     n_conductors = draw(st.integers(1, min(n, 4)))
     owner = _np.array([draw(st.integers(0, n_conductors - 1)) for _ in range(n)])
     owner[:n_conductors] = _np.arange(n_conductors)
