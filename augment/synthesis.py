@@ -312,26 +312,35 @@ class _Synthesis:
         return removed
 
     def series_inductor(self, c) -> None:
-        """One inductor for a current-carrying conductor, with a 0 V source sensing its current."""
+        """One inductor for a current-carrying conductor, with a 0 V source sensing its current.
+
+        The body of a voltage source needs none: the source carries the body's current, from
+        terminal 1 into it, which is the direction of ngspice's branch current.
+        """
         book, henry_self = self.book, self.henry[self.index[c.id], self.index[c.id]]
         self.inductors += 1
         if c.kind == "coil":
             self.coil_element(c, henry_self)
             return
         name = book.claim(_inductor_name(c.id))
-        sense, mid = book.claim("VX_S" + name[2:]), book.claim(name + "_s")
+        sense = None
         if c.kind == "wire":
             start, end = self.node_of[c.start], self.node_of[c.end]
         elif c.kind == "body":
             start, end = self.node_of[c.start], self.body_inner[c.element.lower()]
+            element = self.netlist.element(c.element)
+            sense = element.name if element.kind == "V" else None
         else:  # aggressor: an imposed current through its own inductor
             aggressor = next(a for a in self.graph.aggressors if a.conductor == c.id)
             start, end = book.claim(f"agg_{aggressor.name}"), "0"
             self.lines.append(
                 f"{book.claim('IX_A_' + aggressor.name)} 0 {start} {aggressor.current} $ {c.id} imposed current"
             )
-        self.lines.append(f"{sense} {start} {mid} 0 $ {c.id} current sense")
-        self.lines.append(f"{name} {mid} {end} {_value(henry_self)} $ {c.id} partial L, {c.length_m * 1e3:.4g} mm")
+        if sense is None:
+            sense, mid = book.claim("VX_S" + name[2:]), book.claim(name + "_s")
+            self.lines.append(f"{sense} {start} {mid} 0 $ {c.id} current sense")
+            start = mid
+        self.lines.append(f"{name} {start} {end} {_value(henry_self)} $ {c.id} partial L, {c.length_m * 1e3:.4g} mm")
         self.inductor_of[c.id], self.sense_of[c.id] = name, sense
 
     def coil_element(self, c, henry_self: float) -> None:

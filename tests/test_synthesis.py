@@ -290,3 +290,23 @@ class TestHierarchy:
         # the divider settles at half the 1 V step: the zero-area reading is I R3 = 0.5 V
         local = _reading(vectors, built.augmented.probes[0].local)
         assert np.interp(15e-9, t, local) == pytest.approx(0.5, rel=1e-3)
+
+
+class TestVoltageSourceBody:
+    def test_source_senses_its_own_body_current(self, write_case, simulator):
+        """A placed V source's body has no 0 V sense; its current is the source's, in the direction of R1's."""
+        placed = DIVIDER_SIDEFILE.replace("[terminals]\n", "[terminals]\nV1 = [[0, 0, 0], [0, -10, 0]]\n")
+        netlist, sidefile = write_case(DIVIDER, placed)
+        built = build(netlist, sidefile)
+        lines = _added_block(built.augmented.text)
+        assert not any(line.startswith("VX_S_B_V1") for line in lines)
+        assert built.augmented.current_vectors["body:V1"] == "v1#branch"
+        vectors = simulator.run(built.augmented.text).vectors
+        body = vectors["v1#branch"]
+        resistor = vectors[built.augmented.current_vectors["body:R1"]]
+        # Kirchhoff's current law: the source's branch current, from terminal 1 through it, is
+        # minus the current leaving terminal 1 into R1
+        np.testing.assert_allclose(body, -resistor, atol=1e-9 * np.max(np.abs(resistor)))
+        # Ohm's law on the plateau, averaged over the lead's remaining ring: 1 V over 50 + 50 ohm
+        plateau = (vectors["time"] > 10e-9) & (vectors["time"] < 20e-9)
+        assert np.mean(resistor[plateau]) == pytest.approx(1 / 100, rel=1e-2)
