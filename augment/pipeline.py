@@ -6,9 +6,12 @@ simulate (original and augmented) -> compare. Writing the report is the caller's
 
 from __future__ import annotations
 
+import re
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
+
+import numpy as np
 
 from augment.conductors import ConductorGraph, build_graph
 from augment.inductance import InductanceMatrix, extract
@@ -85,8 +88,9 @@ def simulate_and_compare(built: Built, simulator):
     return comparison, ideal, augmented
 
 
-def result_document(built: Built, comparison, sidefile_path: str | Path, elapsed_s: float) -> dict:
-    """The result document of SPEC (`augment run --json`)."""
+def result_document(built: Built, comparison, sidefile_path: str | Path, elapsed_s: float,
+                    simulator_notes: tuple[str, ...] = ()) -> dict:
+    """The result document of SPEC (`augment run --json`); ``simulator_notes`` join its warnings."""
     from augment.compare import summary
 
     probes = []
@@ -119,9 +123,25 @@ def result_document(built: Built, comparison, sidefile_path: str | Path, elapsed
         "elapsed_s": elapsed_s,
         "timings_s": dict(built.timings_s),
         "coil_segments_per_turn": built.graph.coil_segments_per_turn,
-        "warnings": list(built.warnings),
+        "warnings": [*built.warnings, *simulator_notes, *_silent_ac(comparison)],
         "caution": SAFETY_NOTE,
     }
+
+
+def _silent_ac(comparison) -> list[str]:
+    """A warning when an AC analysis shows nothing: the netlist has no source with an AC value."""
+    if comparison.analysis != "ac" or any(np.any(reading.ideal != 0) for reading in comparison.readings):
+        return []
+    return ["every AC reading is zero: give a source of the netlist an AC value (V1 in 0 DC 0 AC 1)"]
+
+
+def _simulator_notes(ideal, augmented) -> tuple[str, ...]:
+    """What ngspice said about each run, labelled with the run."""
+    def plain(message: str) -> str:
+        return re.sub(r"^warning:\s*", "", message, flags=re.IGNORECASE)
+
+    return (*(f"ngspice, original: {plain(m)}" for m in ideal.messages),
+            *(f"ngspice, augmented: {plain(m)}" for m in augmented.messages))
 
 
 def _finite_or_none(value: float) -> float | None:
@@ -152,10 +172,11 @@ def run(
     built = build(netlist_path, sidefile_path, options)
     if simulator is None:
         with Simulator(timeout_s=timeout_s) as own:
-            comparison, _, _ = simulate_and_compare(built, own)
+            comparison, ideal, augmented = simulate_and_compare(built, own)
     else:
-        comparison, _, _ = simulate_and_compare(built, simulator)
-    document = result_document(built, comparison, sidefile_path, time.perf_counter() - start)
+        comparison, ideal, augmented = simulate_and_compare(built, simulator)
+    document = result_document(built, comparison, sidefile_path, time.perf_counter() - start,
+                               _simulator_notes(ideal, augmented))
     if out_dir is not None:
         write_report(Path(out_dir), built, comparison, document, protected=inputs)
     return document

@@ -436,3 +436,18 @@ class TestNumberedNodes:
         # Ohm's law on the divider: 1 V * 1000 / 1001 once the edge has settled
         assert np.max(reading.ideal) == pytest.approx(1000 / 1001, rel=1e-4)
         assert np.max(np.abs(reading.local)) == pytest.approx(1000 / 1001, rel=0.05)
+
+
+class TestWarnings:
+    def test_ac_without_ac_source_says_so(self, write_case):
+        """An AC run of a netlist with no AC source warns that every reading is zero."""
+        netlist, sidefile = write_case(FAST_EDGE_NETLIST, LONG_GROUND_SIDEFILE)
+        document = run(netlist, sidefile, None, SynthesisOptions(analysis="ac dec 10 1k 100meg"))
+        assert any("every AC reading is zero" in w for w in document["warnings"])
+        assert all(probe["ideal_max"] == 0 for probe in document["probes"])
+
+    def test_ngspice_warnings_reach_the_document(self, write_case):
+        """ngspice's own warning about the original netlist (a loop of inductors at DC) is kept, labelled."""
+        looped = FAST_EDGE_NETLIST.replace("RL out 0 1k\n", "RL out 0 1k\nL1 out x 1u\nL2 out x 1u\nR3 x 0 1k\n")
+        document = run(*write_case(looped, LONG_GROUND_SIDEFILE), None)
+        assert any(w.startswith("ngspice, original: ") and "singular matrix" in w for w in document["warnings"])
