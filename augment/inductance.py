@@ -217,6 +217,7 @@ def lumped_inductance(starts, ends, radii, owner, n_conductors, *, skin_effect=F
             if j0 == i0:
                 block = np.triu(block, 1)
             _accumulate(cross, block, own[rows], own[columns])
+    _soften_joined_pairs(cross, p0, p1, direction, own, gmd)
     matrix = cross + cross.T
     matrix.flags.writeable = False
     return matrix
@@ -381,6 +382,86 @@ def extract(graph) -> InductanceMatrix:
         reference_ids=tuple(reference_ids),
         reference_mutual=reference,
     )
+
+
+def _soften_joined_pairs(cross, p0, p1, direction, own, gmd) -> None:
+    """Thick-wire mutuals for segments of two conductors that leave a joint side by side.
+
+    The loader keeps conductors apart by the sum of their radii except where they are
+    joined, so only these pairs can overlap as wires. Two segments leaving one end point
+    at less than 90 degrees to each other run inside each other's copper near the joint,
+    where the filament form keeps growing as the angle closes (a lead laid along a part's
+    body would link more than the body's own self inductance). For them the kernel 1/R
+    becomes 1/sqrt(R^2 + g^2), g the pair's GMD: the same as the GMD substitution of
+    parallel pairs, and within (g/R)^2 of the filament form away from the joint. Segments
+    that carry on from a joint (a wire split at a junction, bending by less than 90
+    degrees) keep the filament form, as the segments of one conductor do. The change is
+    added to ``cross`` (upper pairs, in H).
+    """
+    n = len(p0)
+    if n < 2:
+        return
+    ends = np.concatenate([p0, p1])
+    segment = np.tile(np.arange(n), 2)
+    far = np.concatenate([p1, p0])  # the other end of the segment, seen from each end point
+    _, group = np.unique(ends, axis=0, return_inverse=True)
+    order = np.argsort(group.reshape(-1), kind="stable")
+    group = group.reshape(-1)[order]
+    segment = segment[order]
+    leaving = (far - ends)[order]
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    pairs = set()
+    for first, last in zip(starts, np.r_[starts[1:], len(group)]):
+        members = segment[first:last]
+        for x in range(len(members)):
+            for y in range(x + 1, len(members)):
+                i, j = sorted((int(members[x]), int(members[y])))
+                side_by_side = np.dot(leaving[first + x], leaving[first + y]) > 0.0
+                if own[i] != own[j] and side_by_side:
+                    pairs.add((i, j))
+    if not pairs:
+        return
+    i, j = (np.array(side) for side in zip(*sorted(pairs)))
+    sin = np.linalg.norm(np.cross(direction[i], direction[j]), axis=1)
+    keep = sin >= _PARALLEL_SIN  # parallel pairs already take the GMD form
+    i, j = i[keep], j[keep]
+    if len(i) == 0:
+        return
+    filament = mutual_filaments(p0[i], p1[i], p0[j], p1[j])
+    softened = _softened_mutual(p0[i], p1[i], p0[j], p1[j], np.sqrt(gmd[i] * gmd[j]))
+    np.add.at(cross, (own[i], own[j]), softened - filament)
+
+
+# Gauss-Legendre panels graded towards a joint: breakpoints as fractions of the segment.
+_JOINT_BREAKS = np.array([0.0, 1e-4, 1e-3, 1e-2, 0.05, 0.2, 0.5, 1.0])
+_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(12)
+
+
+def _softened_mutual(a0, a1, b0, b1, g) -> np.ndarray:
+    """mu0/(4 pi) (ua . ub) double-integral ds dt / sqrt(R^2 + g^2) for segment pairs (rows).
+
+    The inner integral along b is closed (two asinh terms); the outer one along a is
+    Gauss-Legendre on panels graded towards whichever end of a touches b.
+    """
+    la, ua = _lengths_and_directions(a0, a1)
+    lb, ub = _lengths_and_directions(b0, b1)
+    # measure s from the end of a nearer to b, so the panels crowd at the joint
+    near_end = np.minimum(np.linalg.norm(a1 - b0, axis=1), np.linalg.norm(a1 - b1, axis=1)) < np.minimum(
+        np.linalg.norm(a0 - b0, axis=1), np.linalg.norm(a0 - b1, axis=1))
+    origin = np.where(near_end[:, None], a1, a0)
+    toward = np.where(near_end[:, None], -ua, ua)
+    lo, hi = _JOINT_BREAKS[:-1], _JOINT_BREAKS[1:]
+    fraction = (0.5 * (hi - lo)[:, None] * _GL_NODES[None, :] + 0.5 * (hi + lo)[:, None]).ravel()
+    weight = (0.5 * (hi - lo)[:, None] * _GL_WEIGHTS[None, :]).ravel()
+    s = fraction[None, :] * la[:, None]
+    points = origin[:, None, :] + s[:, :, None] * toward[:, None, :]
+    offset = points - b0[:, None, :]
+    t0 = np.einsum("pqk,pk->pq", offset, ub)
+    rho2 = np.maximum(np.einsum("pqk,pqk->pq", offset, offset) - t0 * t0, 0.0) + (g * g)[:, None]
+    rho = np.sqrt(rho2)
+    inner = np.arcsinh((lb[:, None] - t0) / rho) + np.arcsinh(t0 / rho)
+    integral = la * np.sum(weight[None, :] * inner, axis=1)
+    return _K * np.einsum("pk,pk->p", ua, ub) * integral
 
 
 def _lengths_and_directions(start: np.ndarray, end: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
