@@ -25,6 +25,7 @@ References
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -398,37 +399,25 @@ def _soften_joined_pairs(cross, p0, p1, direction, own, gmd) -> None:
     degrees) keep the filament form, as the segments of one conductor do. The change is
     added to ``cross`` (upper pairs, in H).
     """
-    n = len(p0)
-    if n < 2:
-        return
-    ends = np.concatenate([p0, p1])
-    segment = np.tile(np.arange(n), 2)
-    far = np.concatenate([p1, p0])  # the other end of the segment, seen from each end point
-    _, group = np.unique(ends, axis=0, return_inverse=True)
-    order = np.argsort(group.reshape(-1), kind="stable")
-    group = group.reshape(-1)[order]
-    segment = segment[order]
-    leaving = (far - ends)[order]
-    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
-    pairs = set()
-    for first, last in zip(starts, np.r_[starts[1:], len(group)]):
-        members = segment[first:last]
-        for x in range(len(members)):
-            for y in range(x + 1, len(members)):
-                i, j = sorted((int(members[x]), int(members[y])))
-                side_by_side = np.dot(leaving[first + x], leaving[first + y]) > 0.0
-                if own[i] != own[j] and side_by_side:
-                    pairs.add((i, j))
+    # segments by end point; +1 where the point is a segment's start, -1 where it is its end
+    at: dict[tuple[float, float, float], list[tuple[int, int]]] = {}
+    for k, (start, end) in enumerate(zip(p0.tolist(), p1.tolist())):
+        at.setdefault(tuple(start), []).append((k, 1))
+        at.setdefault(tuple(end), []).append((k, -1))
+    pairs = [(*a, *b) if a[0] < b[0] else (*b, *a)
+             for members in at.values() for a, b in itertools.combinations(members, 2) if own[a[0]] != own[b[0]]]
     if not pairs:
         return
-    i, j = (np.array(side) for side in zip(*sorted(pairs)))
+    i, side_i, j, side_j = np.array(pairs).T
+    cos = np.einsum("pk,pk->p", direction[i], direction[j])
     sin = np.linalg.norm(np.cross(direction[i], direction[j]), axis=1)
-    keep = sin >= _PARALLEL_SIN  # parallel pairs already take the GMD form
-    i, j = i[keep], j[keep]
+    # leaving the joint less than 90 degrees apart; parallel pairs already take the GMD form
+    keep = (side_i * side_j * cos > 0.0) & (sin >= _PARALLEL_SIN)
+    i, j, joint_at_end = i[keep], j[keep], side_i[keep] < 0
     if len(i) == 0:
         return
     filament = mutual_filaments(p0[i], p1[i], p0[j], p1[j])
-    softened = _softened_mutual(p0[i], p1[i], p0[j], p1[j], np.sqrt(gmd[i] * gmd[j]))
+    softened = _softened_mutual(p0[i], p1[i], p0[j], p1[j], np.sqrt(gmd[i] * gmd[j]), joint_at_end)
     np.add.at(cross, (own[i], own[j]), softened - filament)
 
 
@@ -437,19 +426,18 @@ _JOINT_BREAKS = np.array([0.0, 1e-4, 1e-3, 1e-2, 0.05, 0.2, 0.5, 1.0])
 _GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(12)
 
 
-def _softened_mutual(a0, a1, b0, b1, g) -> np.ndarray:
+def _softened_mutual(a0, a1, b0, b1, g, joint_at_end) -> np.ndarray:
     """mu0/(4 pi) (ua . ub) double-integral ds dt / sqrt(R^2 + g^2) for segment pairs (rows).
 
     The inner integral along b is closed (two asinh terms); the outer one along a is
-    Gauss-Legendre on panels graded towards whichever end of a touches b.
+    Gauss-Legendre on panels graded towards the joint: a's end where ``joint_at_end``,
+    else its start.
     """
     la, ua = _lengths_and_directions(a0, a1)
     lb, ub = _lengths_and_directions(b0, b1)
-    # measure s from the end of a nearer to b, so the panels crowd at the joint
-    near_end = np.minimum(np.linalg.norm(a1 - b0, axis=1), np.linalg.norm(a1 - b1, axis=1)) < np.minimum(
-        np.linalg.norm(a0 - b0, axis=1), np.linalg.norm(a0 - b1, axis=1))
-    origin = np.where(near_end[:, None], a1, a0)
-    toward = np.where(near_end[:, None], -ua, ua)
+    # measure s from the joint, so the panels crowd there
+    origin = np.where(joint_at_end[:, None], a1, a0)
+    toward = np.where(joint_at_end[:, None], -ua, ua)
     lo, hi = _JOINT_BREAKS[:-1], _JOINT_BREAKS[1:]
     fraction = (0.5 * (hi - lo)[:, None] * _GL_NODES[None, :] + 0.5 * (hi + lo)[:, None]).ravel()
     weight = (0.5 * (hi - lo)[:, None] * _GL_WEIGHTS[None, :]).ravel()

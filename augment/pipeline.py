@@ -135,13 +135,13 @@ def _silent_ac(comparison) -> list[str]:
     return ["every AC reading is zero: give a source of the netlist an AC value (V1 in 0 DC 0 AC 1)"]
 
 
-def _simulator_notes(ideal, augmented) -> tuple[str, ...]:
-    """What ngspice said about each run, labelled with the run."""
-    def plain(message: str) -> str:
-        return re.sub(r"^warning:\s*", "", message, flags=re.IGNORECASE)
+_WARNING_WORD = re.compile(r"^warning:\s*", re.IGNORECASE)
 
-    return (*(f"ngspice, original: {plain(m)}" for m in ideal.messages),
-            *(f"ngspice, augmented: {plain(m)}" for m in augmented.messages))
+
+def _simulator_notes(ideal, augmented) -> tuple[str, ...]:
+    """What ngspice said about each run, labelled with the run (its own "Warning:" dropped)."""
+    return tuple(f"ngspice, {run}: {_WARNING_WORD.sub('', message)}"
+                 for run, result in (("original", ideal), ("augmented", augmented)) for message in result.messages)
 
 
 def _finite_or_none(value: float) -> float | None:

@@ -155,11 +155,11 @@ class WireSpec:
     path: tuple[Point, ...]
     radius: float
     location: Location
-    label: str = ""  # the net as the side-file spells it, for the conductor id
+    label: str  # the net as the side-file spells it, for the conductor id
 
     @property
     def id(self) -> str:
-        return f"wire:{self.label or self.net}:{self.number}"
+        return f"wire:{self.label}:{self.number}"
 
 
 @dataclass(frozen=True, slots=True)

@@ -349,7 +349,7 @@ class TestJoinedConductors:
 
             value, _ = integrate.dblquad(integrand, 0.0, 1.0, 0.0, 1.0, epsabs=0.0, epsrel=1e-11)
             expected = K * float(np.dot(a1 - a0, b1)) * value
-            got = _softened_mutual(a0[None], a1[None], np.zeros((1, 3)), b1[None], np.array([g]))[0]
+            got = _softened_mutual(a0[None], a1[None], np.zeros((1, 3)), b1[None], np.array([g]), np.array([False]))[0]
             assert got == pytest.approx(expected, rel=1e-6)
 
     def test_lead_laid_along_a_body_links_less_than_the_body(self):

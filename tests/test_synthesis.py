@@ -8,6 +8,7 @@ import re
 import numpy as np
 import pytest
 
+from augment.compare import _across
 from augment.netlist import parse_netlist_text
 from augment.pipeline import build
 from augment.synthesis import SynthesisOptions
@@ -51,15 +52,8 @@ def _added_block(text: str) -> list[str]:
 
 
 def _reading(vectors, nodes: tuple[str, str]) -> np.ndarray:
-    """V(node) - V(reference) of a ProbeNodes reading."""
-    return _voltage(vectors, nodes[0]) - _voltage(vectors, nodes[1])
-
-
-def _voltage(vectors, node: str) -> np.ndarray | float:
-    # ngspice calls a node's vector v(NODE) when the name starts with a digit
-    if node == "0":
-        return 0.0
-    return vectors.get(node.lower(), vectors.get(f"v({node.lower()})"))
+    """V(node) - V(reference) of a ProbeNodes reading, read as the compare stage reads it."""
+    return _across(vectors, nodes, len(vectors["time"]))
 
 
 class TestSynthesize:
