@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import assume, given, settings
+from hypothesis import assume, example, given, settings
 from scipy import integrate
 from scipy.special import ellipe, ellipk
 
@@ -183,12 +183,16 @@ class TestMutualFilaments:
 
     @settings(max_examples=40, deadline=None)
     @given(segment_pairs())
+    # nearly collinear, 1e-4 rad apart, found by Hypothesis: both placements are within
+    # 4e-7 of mpmath's quadrature of Neumann's integral, but differ by 3.4e-7
+    @example((np.array([0.0, 0, 0]), np.array([0.0, 0, 1]), np.array([0.0, 0, 1.5]), np.array([4.99999998e-05, 0, 1])))
     def test_rigid_motion_invariance(self, pair):
         """Rotating and translating both filaments leaves M unchanged."""
         q, _ = np.linalg.qr(np.array([[0.3, -1.2, 0.5], [0.9, 0.1, -0.4], [0.2, 0.7, 1.1]]))
         moved = [one(p @ q.T + np.array([0.3, -2.0, 5.0])) for p in pair]
-        # Neumann's integral depends only on relative positions and angles
-        np.testing.assert_allclose(mutual_filaments(*moved), mutual_filaments(*(one(p) for p in pair)), rtol=1e-7, atol=1e-14)
+        # Neumann's integral depends only on relative positions and angles; 1e-6 is the
+        # accuracy the kernel promises (near-parallel pairs lose digits, as above)
+        np.testing.assert_allclose(mutual_filaments(*moved), mutual_filaments(*(one(p) for p in pair)), rtol=1e-6, atol=1e-14)
 
 
 class TestLumpedInductance:
