@@ -474,12 +474,25 @@ def _check_out_dir(out: Path, plan: Plan, junit: Path | None) -> None:
 
     inputs = [plan.path, *(p for case in plan.cases for p in (case.netlist, case.sidefile))]
     resolved = {p.resolve() for p in inputs}
+    if (out / "summary.csv").exists() or (junit is not None and junit.exists()):
+        # only a file that is already there can be an include; parsing costs time otherwise
+        resolved |= {p for case in plan.cases for p in _included_files(case.netlist)}
     if junit is not None and junit.resolve() in resolved:
         raise OptionError(str(junit), "refusing to overwrite an input file; choose another --junit")
     check_output_folder(out, inputs)
     for written in (out / "summary.csv", *(out / case.name for case in plan.cases)):
         if written.resolve() in resolved:
             raise OptionError(str(out), f"the batch would replace the input {written}; choose another -o")
+
+
+def _included_files(netlist: Path) -> tuple[Path, ...]:
+    """The files a case's netlist includes; none when it does not parse (its case will say why)."""
+    from augment.netlist import parse_netlist
+
+    try:
+        return parse_netlist(netlist).included_files
+    except AugmentError:
+        return ()
 
 
 def _local_rows(tasks: list[tuple], jobs: int | None) -> Iterator[dict]:
@@ -542,19 +555,23 @@ def _verdict(case: Case, row: dict) -> str:
 
 
 def _with_progress(rows: Iterator[dict], total: int, verdict: Callable[[dict], str]) -> Iterator[dict]:
-    """Pass the rows on, with a progress bar on a terminal and one plain line per case otherwise."""
+    """Pass the rows on, with a progress bar on a terminal and one plain line per case otherwise.
+
+    A row is shown once the caller has it (after the yield): an interrupt that follows the
+    line cannot lose a case the line reported.
+    """
     if sys.stderr.isatty():
         from tqdm import tqdm
 
         with tqdm(total=total, unit="case", file=sys.stderr) as bar:
             for row in rows:
+                yield row
                 bar.set_postfix_str(f"{row['case']}: {verdict(row)}", refresh=False)
                 bar.update()
-                yield row
         return
     for done, row in enumerate(rows, 1):
-        print(f"[{done}/{total}] {row['case']}: {verdict(row)} ({row['elapsed_s']:.1f} s)", file=sys.stderr, flush=True)
         yield row
+        print(f"[{done}/{total}] {row['case']}: {verdict(row)} ({row['elapsed_s']:.1f} s)", file=sys.stderr, flush=True)
 
 
 def _setups(rows: list[dict]) -> dict[str, list[dict]]:

@@ -111,14 +111,31 @@ def build(netlist, sidefile, output, coupling, kmin, analysis):
     if output and Path(output).resolve() in {Path(netlist).resolve(), Path(sidefile).resolve()}:
         raise OptionError(output, "refusing to overwrite an input file; choose another -o")
     built = build_netlist(netlist, sidefile, _synthesis_options(coupling, kmin, analysis))
+    if output and Path(output).resolve() in built.netlist.included_files:
+        raise OptionError(output, "refusing to overwrite a file the netlist includes; choose another -o")
     _warn(built.warnings)
     if output:
+        relative = _relative_include(built.netlist)
+        if relative is not None and Path(output).resolve().parent != Path(netlist).resolve().parent:
+            _warn([f"{relative.location}: .{relative.kind} paths stay relative to {Path(netlist).parent}/; "
+                   f"run {output} from there or write it beside the netlist"])
         write_text_atomic(Path(output), built.augmented.text)
         click.echo(
             f"wrote {output}: {built.augmented.inductors} inductors, {built.augmented.couplings} couplings", err=True
         )
     else:
         click.echo(built.augmented.text, nl=False)
+
+
+def _relative_include(netlist):
+    """The first top-level .include or .lib whose file path is relative, or None."""
+    for statement in netlist.statements:
+        fields = statement.args.split() if getattr(statement, "kind", None) in ("include", "lib") else []
+        # `.lib NAME` alone opens a library section: no file
+        if fields and (statement.kind == "include" or len(fields) > 1):
+            if not Path(fields[0].strip("\"'")).is_absolute():
+                return statement
+    return None
 
 
 @main.command()
@@ -168,15 +185,15 @@ def extract(netlist, sidefile, as_json):
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="PNG file to write.")
 def view(netlist, sidefile, output):
     """Draw the geometry: parts, copper, field sources and probe leads, labelled."""
-    from augment.conductors import build_graph
     from augment.netlist import parse_netlist
+    from augment.pipeline import place
     from augment.report import draw_geometry
-    from augment.sidefile import load_sidefile
 
     if Path(output).resolve() in {Path(netlist).resolve(), Path(sidefile).resolve()}:
         raise OptionError(output, "refusing to overwrite an input file; choose another -o")
-    parsed = parse_netlist(netlist)
-    graph = build_graph(load_sidefile(sidefile, parsed), parsed)
+    parsed, graph = place(parse_netlist(netlist), sidefile)
+    if Path(output).resolve() in parsed.included_files:
+        raise OptionError(output, "refusing to overwrite a file the netlist includes; choose another -o")
     _warn(graph.warnings)
     draw_geometry(graph, parsed, Path(output))
     click.echo(f"wrote {output}", err=True)

@@ -152,6 +152,10 @@ class Netlist:
     title_raw: str | None = None
     models: frozenset[str] = frozenset()
     newline: str = "\n"
+    # every file read through .include and .lib, nested ones too (resolved paths)
+    included_files: tuple[Path, ...] = ()
+    # lower-cased name -> location of the elements at the top level of those files
+    included_elements: Mapping[str, Location] = field(default_factory=dict)
     _index: Mapping[str, Element] = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -248,7 +252,7 @@ class Netlist:
             end = _end_position(statements)
             statements[end:end] = extra.statements
         return Netlist(self.path, self.title, tuple(statements), self.subcircuits, self.params,
-                       self.title_raw, self.models, self.newline)
+                       self.title_raw, self.models, self.newline, self.included_files, self.included_elements)
 
     def flatten(self, instance: str) -> Netlist:
         """A copy with subcircuit instance ``instance`` expanded into top-level elements.
@@ -273,7 +277,7 @@ class Netlist:
             else:
                 statements.append(statement)
         return Netlist(self.path, self.title, tuple(statements), self.subcircuits, self.params,
-                       self.title_raw, self.models, self.newline)
+                       self.title_raw, self.models, self.newline, self.included_files, self.included_elements)
 
     def _local_models(self, instance: Element) -> list[Directive]:
         """The subcircuit's own .model lines, renamed ``x1.name`` for the flattened elements."""
@@ -826,6 +830,9 @@ class _Builder:
         self.params: dict[str, str] = {}
         self.models: set[str] = set()
         self.instances: list[Element] = []
+        self.included_files: list[Path] = []
+        self.included_elements: dict[str, Location] = {}
+        self.defined: list[dict[str, Location]] = [{}]  # element names of the top level, then of each open .subckt
 
     def add(self, statement) -> None:
         (self.open[-1][4] if self.open else self.top).append(statement)
@@ -837,6 +844,10 @@ class _Builder:
         if tag == "element":
             _, name, kind, nodes, value, fields = parsed
             element = Element(str(name), kind, nodes, value, fields, where, code.raw)
+            first = self.defined[-1].setdefault(element.key, where) if self.in_section else where
+            if first is not where:
+                # ngspice stops at the second one ("device already exists")
+                raise NetlistError(where, f"element {element.name} is already defined at {first}")
             if kind == "X":
                 self.instances.append(element)
             self.add(element)
@@ -892,11 +903,13 @@ class _Builder:
             elif str(token).lower() != "params:":
                 ports.append(_node(token))
         self.open.append((directive, name, tuple(ports), params, []))
+        self.defined.append({})
 
     def _close_subckt(self, directive: Directive, fields) -> None:
         if not self.open:
             raise NetlistError(directive.location, ".ends without a .subckt")
         header, name, ports, params, statements = self.open.pop()
+        self.defined.pop()
         if fields and str(fields[0]).lower() != name.lower():
             raise NetlistError(directive.location, f".ends {fields[0]} closes .subckt {name}")
         sub = Subcircuit(name, ports, MappingProxyType(params), tuple(statements), header.location, header, directive)
@@ -922,6 +935,8 @@ class _Builder:
         for key, expr in included.params.items():
             self.params.setdefault(key, expr)
         self.models.update(included.models)
+        self.included_files += [resolved, *included.included_files]
+        self.included_elements.update({e.key: e.location for e in included.elements}, **included.included_elements)
 
     def finish(self, title: str, newline: str) -> Netlist:
         if self.open:
@@ -945,7 +960,8 @@ class _Builder:
         title_text = title.strip()
         return Netlist(self.filename, title_text, tuple(self.top), MappingProxyType(self.subcircuits),
                        MappingProxyType(self.params), title if title else None, frozenset(self.models),
-                       newline)
+                       newline, tuple(dict.fromkeys(self.included_files)),
+                       MappingProxyType(self.included_elements))
 
 
 def _read(path: Path, where: Location, what: str) -> str:

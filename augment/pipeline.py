@@ -45,14 +45,7 @@ def build(netlist_path: str | Path, sidefile_path: str | Path, options: Synthesi
     netlist = parse_netlist(netlist_path)
     timings["parse"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    sidefile = load_sidefile(sidefile_path, netlist)
-    instances = _instances_to_flatten(sidefile)
-    if instances:
-        # elements placed inside subcircuit instances (X1.R3) need those instances expanded
-        for instance in instances:
-            netlist = netlist.flatten(instance)
-        sidefile = load_sidefile(sidefile_path, netlist)
-    graph = build_graph(sidefile, netlist)
+    netlist, graph = place(netlist, sidefile_path)
     timings["geometry"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     inductance = extract(graph)
@@ -61,6 +54,21 @@ def build(netlist_path: str | Path, sidefile_path: str | Path, options: Synthesi
     augmented = synthesize(netlist, graph, inductance, options, sidefile_name=Path(sidefile_path).name)
     timings["build"] = time.perf_counter() - t0
     return Built(netlist, graph, inductance, augmented, (*graph.warnings, *augmented.notes), timings)
+
+
+def place(netlist: Netlist, sidefile_path: str | Path) -> tuple[Netlist, ConductorGraph]:
+    """Load the side-file against ``netlist`` and build the conductor graph.
+
+    Elements placed inside subcircuit instances (X1.R3) need those instances expanded: the
+    netlist returned has them flattened.
+    """
+    sidefile = load_sidefile(sidefile_path, netlist)
+    instances = _instances_to_flatten(sidefile)
+    if instances:
+        for instance in instances:
+            netlist = netlist.flatten(instance)
+        sidefile = load_sidefile(sidefile_path, netlist)
+    return netlist, build_graph(sidefile, netlist)
 
 
 def _instances_to_flatten(sidefile) -> list[str]:
@@ -178,7 +186,7 @@ def run(
     document = result_document(built, comparison, sidefile_path, time.perf_counter() - start,
                                _simulator_notes(ideal, augmented))
     if out_dir is not None:
-        write_report(Path(out_dir), built, comparison, document, protected=inputs)
+        write_report(Path(out_dir), built, comparison, document, protected=[*inputs, *built.netlist.included_files])
     return document
 
 

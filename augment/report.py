@@ -147,7 +147,12 @@ def _write_atomic(path: Path, write) -> None:
     """Call ``write(temporary_path)`` beside ``path``, then move the result into place.
 
     mkstemp makes the file private; it gets the modes any new file gets before the move.
+    A device or a pipe (``/dev/null``, ``/dev/stdout``, a FIFO) is written through instead:
+    a move would replace the device itself.
     """
+    if path.is_char_device() or path.is_fifo():
+        write(path)
+        return
     path.parent.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     os.close(handle)

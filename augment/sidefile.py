@@ -342,8 +342,8 @@ def analysis_problem(kind: str, value: str) -> str | None:
             return f"ac = {value!r} must start with dec, oct or lin, e.g. {example}"
         fields = fields[1:]
     if not required <= len(fields) <= len(names):
-        return (f"{kind} = {value!r} needs {' '.join(names[:required])} "
-                f"(and optionally {' '.join(names[required:]) or 'nothing more'}), e.g. {example}")
+        optional = f" (and optionally {' '.join(names[required:])})" if len(names) > required else ""
+        return f"{kind} = {value!r} needs {' '.join(names[:required])}{optional}, e.g. {example}"
     numbers = {}
     for name, field in zip(names, fields):
         try:
@@ -352,6 +352,10 @@ def analysis_problem(kind: str, value: str) -> str | None:
             return f"{kind}: {name} = {field!r} is not a SPICE number, e.g. {example}"
         if numbers[name] < 0 or (numbers[name] == 0 and name != "TSTART"):
             return f"{kind}: {name} = {field!r} must be greater than 0"
+    if kind == "ac" and numbers["FSTART"] > numbers["FSTOP"]:
+        return f"ac = {value!r}: FSTART is above FSTOP, e.g. {example}"
+    if kind == "tran" and numbers.get("TSTART", 0) >= numbers["TSTOP"]:
+        return f"tran = {value!r}: TSTART must be below TSTOP, e.g. {example}"
     if kind == "tran" and numbers["TSTOP"] / numbers["TSTEP"] > MAX_TIME_POINTS:
         return (f"tran = {value!r} asks for {numbers['TSTOP'] / numbers['TSTEP']:.3g} time points "
                 f"(more than {MAX_TIME_POINTS:g}): check the scale factors of TSTEP and TSTOP")
@@ -565,6 +569,11 @@ class _Loader:
         try:
             return self.netlist.element(name)
         except KeyError:
+            hidden = self.netlist.included_elements.get(name.lower())
+            if hidden is not None:
+                self.fail(f"{what}: element '{name}' is at the top level of the included file {hidden}, "
+                          "where it cannot be placed; move it into the netlist or into a subcircuit",
+                          table, index, key)
             self.fail(f"{what}: there is no element '{name}' in the netlist {Path(str(self.netlist.path)).name}",
                       table, index, key)
 

@@ -310,7 +310,8 @@ class _Synthesis:
 
     def control_block_notes(self) -> list[str]:
         return [
-            f"{statement.location}: .control block left out of the simulation; the tool issues the analysis itself"
+            f"{statement.location}: .control block left out of the augmented netlist and both simulations; "
+            "the tool issues the analysis itself"
             for statement in self.netlist.statements
             if getattr(statement, "kind", None) == "control"
         ]

@@ -178,6 +178,46 @@ class TestBuild:
         assert_clean_failure(result, 2, "refusing to overwrite an input file")
         assert target.read_bytes() == before
 
+    def test_output_onto_an_included_file_refused(self, case):
+        """-o naming a file the netlist includes is refused (exit 2) and that file keeps its bytes."""
+        case[0].write_text(NETLIST.replace("C1 out 0 10p", "C1 out 0 {cload}\n.include load.inc"))
+        included = case[0].parent / "load.inc"
+        included.write_text(".param cload=10p\n")
+        result = invoke("build", case[0], "-g", case[1], "-o", included)
+        assert_clean_failure(result, 2, "refusing to overwrite a file the netlist includes")
+        assert included.read_text() == ".param cload=10p\n"
+
+    def test_output_into_a_pipe_is_written_through(self, case, tmp_path):
+        """-o naming a FIFO writes the netlist into it and leaves it a FIFO (a rename would replace it)."""
+        import threading
+
+        fifo = tmp_path / "pipe"
+        os.mkfifo(fifo)
+        received = []
+        reader = threading.Thread(target=lambda: received.append(fifo.read_text()), daemon=True)
+        reader.start()
+        result = invoke("build", case[0], "-g", case[1], "-o", fifo)
+        reader.join(timeout=30)
+        assert result.exit_code == 0, result.output
+        assert stat.S_ISFIFO(fifo.stat().st_mode)
+        assert "LX_out_1" in received[0]
+
+    def test_relative_include_elsewhere_warns(self, case, tmp_path):
+        """-o in another folder than the netlist's, with a relative .include, says where to run it."""
+        case[0].write_text(NETLIST.replace("C1 out 0 10p", "C1 out 0 {cload}\n.include load.inc"))
+        (case[0].parent / "load.inc").write_text(".param cload=10p\n")
+        result = invoke("build", case[0], "-g", case[1], "-o", tmp_path / "aug.cir")
+        assert result.exit_code == 0, result.output
+        assert f"{case[0]}:5:1: .include paths stay relative to {case[0].parent}/" in result.stderr
+        beside = invoke("build", case[0], "-g", case[1], "-o", case[0].parent / "aug.cir")
+        assert "stay relative" not in beside.stderr
+
+    def test_ac_start_above_stop_is_bad_input(self, case):
+        """--analysis with FSTART above FSTOP is refused as bad input (exit 2), not left to ngspice."""
+        result = invoke("build", case[0], "-g", case[1], "--analysis", "ac dec 10 1g 1k")
+        assert result.exit_code == 2
+        assert "FSTART is above FSTOP" in result.output and "Traceback" not in result.output
+
     def test_bad_netlist_leaves_existing_output(self, case, tmp_path):
         """A bad netlist exits 2 at its file:line:column and does not touch an existing -o file."""
         case[0].write_text(BAD_NETLIST)
@@ -271,6 +311,15 @@ class TestRun:
         assert_clean_failure(result, 2, "would replace the input")
         assert {p.name: p.read_bytes() for p in folder.iterdir()} == before
 
+    def test_report_file_that_would_replace_an_included_file_is_refused(self, case):
+        """An included file named like a report file (result.json) stops the move: exit 2, it keeps its bytes."""
+        folder = case[0].parent
+        case[0].write_text(NETLIST.replace("C1 out 0 10p", "C1 out 0 {cload}\n.include result.json"))
+        (folder / "result.json").write_text(".param cload=10p\n")
+        result = invoke("run", case[0], "-g", case[1], "-o", folder)
+        assert_clean_failure(result, 2, "would replace the input")
+        assert (folder / "result.json").read_text() == ".param cload=10p\n"
+
     def test_simulator_failure_exits_3(self, case, tmp_path):
         """A netlist ngspice cannot solve exits 3 with ngspice's words quoted and what to try; no report."""
         case[0].write_text(FAILING_NETLIST)
@@ -363,6 +412,17 @@ class TestView:
         assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
         assert result.stdout == ""
         assert str(out) in result.stderr
+
+    def test_probe_on_an_element_inside_an_instance(self, case, tmp_path):
+        """A probe at a terminal of X1.RA (inside a subcircuit instance) is drawn, as build accepts it."""
+        case[0].write_text(NETLIST.replace("R9 out 0 1meg", ".subckt PAD p n\nRA p n 1meg\n.ends PAD\nX1 out 0 PAD"))
+        case[1].write_text(SIDEFILE.replace('C1 = [[20, 0, 0], [20, -10, 0]]', 'C1 = [[20, 0, 0], [20, -10, 0]]\n"X1.RA" = [[100, 0, 0], [100, -10, 0]]')
+                           + '\n[[probe]]\nname = "pad"\nplus = "X1.RA.1"\nminus = "X1.RA.2"\ninstrument = "passive-10x"\n'
+                           'plus_lead = ["X1.RA.1", [110, 0, 20]]\nminus_lead = ["X1.RA.2", [110, -1, 20]]\n')
+        assert invoke("build", case[0], "-g", case[1]).exit_code == 0
+        result = invoke("view", case[0], "-g", case[1], "-o", tmp_path / "g.png")
+        assert result.exit_code == 0, result.output
+        assert (tmp_path / "g.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
     def test_output_equal_to_sidefile_refused(self, case):
         """-o naming the side-file is refused (exit 2) and the side-file keeps its bytes."""

@@ -50,6 +50,34 @@ class TestRingingFrequency:
         error = np.where(late, 0.1 * np.sin(2 * np.pi * 200e6 * (t - 300e-9)), error)
         assert ringing_frequency(t, ideal, error) == pytest.approx(50e6, rel=0.01)
 
+    @staticmethod
+    def _pulse_train(half_period: float, f_hz: float, tau: float):
+        """Square edges every ``half_period``, each re-exciting exp(-t/tau) cos(2 pi f t)."""
+        t = np.arange(0, 400e-9, 0.05e-9)
+        edges = np.arange(20e-9, t[-1], half_period)
+        ideal, error = np.zeros_like(t), np.zeros_like(t)
+        for n, edge in enumerate(edges):
+            after = t - edge
+            sign = 1 if n % 2 == 0 else -1
+            ideal += sign * np.clip(after / 1e-9, 0, 1)
+            error = np.where(after >= 0, sign * np.exp(-after / tau) * np.cos(2 * np.pi * f_hz * after), error)
+        return t, ideal, error
+
+    def test_edge_train_gives_the_ringing_not_a_harmonic(self):
+        """Edges 120 ns apart ringing at 37 MHz give 37 MHz within 2 %, not a harmonic of the
+        edge rate."""
+        # 5 % of the envelope is reached after 3 tau = 120 ns: 4.4 periods, cut by the next edge
+        t, ideal, error = self._pulse_train(120e-9, 37e6, 40e-9)
+        # the zero crossings of exp(-t/tau) cos(2 pi f t) are exactly those of the cosine
+        assert ringing_frequency(t, ideal, error) == pytest.approx(37e6, rel=0.02)
+
+    def test_edge_train_faster_than_three_periods_is_none(self):
+        """Edges 50 ns apart leave under two periods of 37 MHz between them: none (SPEC), where
+        the whole train's spectrum once gave its 50 MHz harmonic."""
+        t, ideal, error = self._pulse_train(50e-9, 37e6, 25e-9)
+        assert 50e-9 * 37e6 < 3
+        assert ringing_frequency(t, ideal, error) is None
+
     @pytest.mark.parametrize("seed", range(20))
     def test_random_damped_ringing(self, seed):
         """Damped cosines of random frequency, decay, phase, sampling and noise, within 2 %.

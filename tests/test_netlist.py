@@ -340,6 +340,26 @@ class TestParseNetlist:
         with pytest.raises(NetlistError, match=r"bad\.inc:2:1: element C1 needs 2 nodes, found 1"):
             parse_netlist(tmp_path / "top.cir")
 
+    def test_included_files_and_their_elements_are_known(self, tmp_path):
+        """Every file read through .include is listed, and its top-level elements by location."""
+        (tmp_path / "top.cir").write_text("t\n.include a.inc\nR1 a 0 1k\n.end\n")
+        (tmp_path / "a.inc").write_text("* a\n.include b.inc\nRINC a 0 2k\n")
+        (tmp_path / "b.inc").write_text(".param x=1\n")
+        netlist = parse_netlist(tmp_path / "top.cir")
+        assert netlist.included_files == ((tmp_path / "a.inc").resolve(), (tmp_path / "b.inc").resolve())
+        assert str(netlist.included_elements["rinc"]) == f"{tmp_path / 'a.inc'}:3:1"
+
+    def test_element_defined_twice_is_an_error(self, tmp_path):
+        """A second element of the same name (any case) is an error at its line, naming the first."""
+        (tmp_path / "top.cir").write_text("t\nR1 a 0 1k\nC1 a 0 1p\nr1 a b 2k\n.end\n")
+        with pytest.raises(NetlistError, match=r"top\.cir:4:1: element r1 is already defined at .*top\.cir:2:1"):
+            parse_netlist(tmp_path / "top.cir")
+
+    def test_same_name_in_two_subcircuits_is_fine(self, tmp_path):
+        """Element names are local to their subcircuit, as in ngspice."""
+        (tmp_path / "top.cir").write_text("t\n.subckt a p\nR1 p 0 1k\n.ends\n.subckt b p\nR1 p 0 2k\n.ends\nR1 n 0 3k\n.end\n")
+        assert set(parse_netlist(tmp_path / "top.cir").subcircuits) == {"a", "b"}
+
     def test_missing_file(self, tmp_path):
         """A netlist file that does not exist is a NetlistError, not an OSError."""
         with pytest.raises(NetlistError, match="cannot read netlist"):

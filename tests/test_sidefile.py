@@ -135,6 +135,16 @@ class TestLoadSidefileText:
         assert error.where.line == line_of(text, "R9 =")
         assert "there is no element 'R9' in the netlist bench.cir" in error.message
 
+    def test_element_at_the_top_of_an_include_says_so(self, tmp_path):
+        """Placing an element written at the top level of an included file says where it is and why it cannot be placed."""
+        (tmp_path / "parts.inc").write_text("* parts\nRINC a 0 1k\n")
+        netlist = parse_netlist_text(NETLIST_TEXT.replace(".end", ".include parts.inc\n.end"), "bench.cir", tmp_path)
+        text = BASE + "RINC = [[0, 0, 5], [8, 0, 5]]\n"
+        with pytest.raises(SideFileError) as caught:
+            load_sidefile_text(textwrap.dedent(text), "ring.toml", netlist)
+        assert f"element 'RINC' is at the top level of the included file {tmp_path / 'parts.inc'}:2:1" in caught.value.message
+        assert "move it into the netlist or into a subcircuit" in caught.value.message
+
     def test_element_lookup_is_case_insensitive(self):
         """An element placed as 'r1' is the netlist's R1."""
         side = load(BASE.replace("R1 =", "r1 ="))
