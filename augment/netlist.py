@@ -844,10 +844,11 @@ class _Builder:
         if tag == "element":
             _, name, kind, nodes, value, fields = parsed
             element = Element(str(name), kind, nodes, value, fields, where, code.raw)
-            first = self.defined[-1].setdefault(element.key, where) if self.in_section else where
-            if first is not where:
-                # ngspice stops at the second one ("device already exists")
-                raise NetlistError(where, f"element {element.name} is already defined at {first}")
+            if self.in_section:
+                first = self.defined[-1].setdefault(element.key, where)
+                if first is not where:
+                    # ngspice stops at the second one ("device already exists")
+                    raise NetlistError(where, f"element {element.name} is already defined at {first}")
             if kind == "X":
                 self.instances.append(element)
             self.add(element)
@@ -936,7 +937,8 @@ class _Builder:
             self.params.setdefault(key, expr)
         self.models.update(included.models)
         self.included_files += [resolved, *included.included_files]
-        self.included_elements.update({e.key: e.location for e in included.elements}, **included.included_elements)
+        self.included_elements.update({e.key: e.location for e in included.elements})
+        self.included_elements.update(included.included_elements)
 
     def finish(self, title: str, newline: str) -> Netlist:
         if self.open:
