@@ -225,8 +225,9 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
     out = Path(out_dir) if out_dir is not None else Path(f"{Path(plan).stem}-batch")
     _check_out_dir(out, checked, junit)
     out.mkdir(parents=True, exist_ok=True)
-    tasks = [(case.name, str(case.netlist), str(case.sidefile), str(out / case.name), timeout_s)
-             for case in checked.cases]
+    # absolute: a Dask worker runs in a folder of its own
+    tasks = [(case.name, str(case.netlist.resolve()), str(case.sidefile.resolve()), str((out / case.name).resolve()),
+              timeout_s) for case in checked.cases]
     finished: dict[str, dict] = {}
     interrupted = False
     by_name = {case.name: case for case in checked.cases}
@@ -273,7 +274,7 @@ def summary_rows(case: Case, row: dict) -> list[dict]:
     Each limit gets a column ``limit:KEY`` holding ``ok`` or ``broken``; the message names
     every broken limit with its value.
     """
-    base = {"case": case.name, "netlist": row["netlist"], "sidefile": row["sidefile"]}
+    base = {"case": case.name, "netlist": str(case.netlist), "sidefile": str(case.sidefile)}
     if row["status"] == "error" or not row["probes"]:
         return [{**base, "probe": "", "status": row["status"], "exit_code": row["exit_code"],
                  "message": row["message"]}]
@@ -525,8 +526,9 @@ def _dask_rows(tasks: list[tuple], scheduler: str) -> Iterator[dict]:
         raise OptionError("--scheduler", "Dask is not installed; install the package's 'cluster' extra") from None
     try:
         client = Client(scheduler, timeout=_CONNECT_TIMEOUT_S)
-    except (OSError, TimeoutError, ValueError) as error:
-        raise OptionError("--scheduler", f"cannot reach the Dask scheduler at {scheduler}: {error}") from None
+    except Exception as error:  # noqa: BLE001 - a server that is not a Dask scheduler may answer anything
+        raise OptionError("--scheduler", f"cannot reach the Dask scheduler at {scheduler}: "
+                          f"{type(error).__name__}: {error}") from None
     try:
         # pure=False: a fresh key per submission, so a case run twice (or by two batches on
         # one cluster) is two runs, never a shared or cached result.

@@ -91,8 +91,9 @@ def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) ->
     strongest line of the spectrum of its derivative whose period fits three times in the
     window is taken, the error is band-passed around that line (zero-phase, so crossings
     stay in place) and its crossings are counted over the stretch where the oscillation's
-    envelope is above 5 % of its peak (SPEC). Fewer than three periods there, or an
-    oscillation under 1 % of the error's own peak (numerical noise), mean no ringing: None.
+    envelope is above 5 % of its peak (SPEC). Fewer than three periods there, an
+    oscillation under 1 % of the error's own peak (numerical noise), or a line with fewer
+    than four samples a period mean no ringing: None.
     The frequency is the number of half-periods over the time they span.
     """
     if len(base) < 16:
@@ -118,6 +119,8 @@ def ringing_frequency(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) ->
     # weighted by frequency (the spectrum of dx/dt): a ringing line stands out of the broad
     # low-frequency hump that the edge itself leaves in the window
     peak_f = frequencies[usable][np.argmax((spectrum * frequencies)[usable])]
+    if peak_f > 0.25 / dt:
+        return None  # under four samples a period: the corners of the time steps, not a ringing
     low, high = 0.7 * peak_f, min(1.3 * peak_f, 0.99 * 0.5 / dt)
     if not 0 < low < high:
         return None
@@ -163,31 +166,22 @@ def _band_analytic(x: np.ndarray, dt: float, low: float, high: float) -> np.ndar
 
 
 def _after_largest_edge(base: np.ndarray, ideal: np.ndarray, error: np.ndarray) -> slice | None:
-    """Samples from the error's largest edge to the next edge of the ideal waveform at least
-    half as steep as its steepest, or to the end of the run.
+    """Samples from the error's largest edge to the end of the run.
 
     The largest edge is the error's steepest point, moved past the rest of an ideal edge it
     sits on. Later, smaller edges stay in the window: they re-excite the same lead ringing,
-    and cutting there would hide ringing that outlasts them. A train of edges as large is
-    cut at the next one: over several of them the spectrum is a comb of the edge rate's
-    harmonics, and its strongest line is the harmonic nearest the ringing, not the ringing.
+    and cutting there would hide ringing that outlasts them.
     """
     error_slope = np.abs(np.gradient(error, base))
     if not np.any(error_slope > 0):
         return None
     start = int(np.argmax(error_slope))
     ideal_slope = np.abs(np.gradient(ideal, base))
-    if not np.any(ideal_slope > 0):
-        return slice(start, len(base))
-    steep = ideal_slope > 0.1 * ideal_slope.max()
-    # np.gradient spreads a jump over a sample either side: an ideal edge that starts within
-    # two samples is the one the error's edge belongs to
-    ahead = np.nonzero(steep[start:start + 3])[0]
-    start += int(ahead[0]) if len(ahead) else 0
-    while start < len(base) - 1 and steep[start]:
-        start += 1
-    large = np.nonzero(ideal_slope[start:] >= 0.5 * ideal_slope.max())[0]
-    return slice(start, start + int(large[0]) if len(large) else len(base))
+    if np.any(ideal_slope > 0):
+        steep = ideal_slope > 0.1 * ideal_slope.max()
+        while start < len(base) - 1 and steep[start]:
+            start += 1
+    return slice(start, len(base))
 
 
 def compare(augmented: Augmented, ideal_vectors: Mapping, augmented_vectors: Mapping) -> Comparison:

@@ -76,6 +76,7 @@ class Element:
     fields: tuple[str, ...]
     location: Location
     raw: str | None = None
+    comment: str = ""  # the statement's inline comments ("$ ..." or "; ..."), kept when it changes
 
     @property
     def key(self) -> str:
@@ -96,8 +97,8 @@ class Element:
         return MappingProxyType({key.strip().lower(): value.strip() for key, _, value in pairs})
 
     def canonical(self) -> str:
-        """The element as one canonical line: name, nodes, then fields, space separated."""
-        return " ".join((self.written_name, *self.nodes, *self.fields))
+        """The element as one canonical line: name, nodes, fields, then its inline comments."""
+        return " ".join((self.written_name, *self.nodes, *self.fields, *filter(None, [self.comment])))
 
 
 @dataclass(frozen=True, slots=True)
@@ -423,6 +424,16 @@ class _Code:
                 break
             start, line, column = piece
         return Location(self.filename, line, column + offset - start)
+
+
+def _inline_comments(raw: str) -> str:
+    """The inline comments of a statement's lines, in order, on one line."""
+    found = []
+    for line in raw.split("\n"):
+        match = _COMMENT_START.search(line) if ";" in line or "$" in line else None
+        if match is not None and not line.lstrip().startswith("*"):
+            found.append(line[match.start():].strip())
+    return " ".join(found)
 
 
 def _strip_comment(line: str) -> str:
@@ -843,7 +854,7 @@ class _Builder:
         where = code.location(len(code.text) - len(code.text.lstrip()))
         if tag == "element":
             _, name, kind, nodes, value, fields = parsed
-            element = Element(str(name), kind, nodes, value, fields, where, code.raw)
+            element = Element(str(name), kind, nodes, value, fields, where, code.raw, _inline_comments(code.raw))
             if self.in_section:
                 first = self.defined[-1].setdefault(element.key, where)
                 if first is not where:

@@ -334,8 +334,9 @@ def _without_incomplete_coupling_notes(lines: list[str]) -> list[str]:
 
     ngspice says "The Inductive System consisting of <names> has an incomplete set of K
     couplings, (missing ones are implicitly 0)" over several lines whenever two coupled
-    inductors have no K line between them (exactly perpendicular pieces have none). That
-    is a note, not a failure; "... is not positive definite" stays an error.
+    inductors have no K line between them: exactly perpendicular pieces have none, and
+    --kmin leaves the weakest out on purpose. Nothing there for the user to act on, so it
+    goes; "... is not positive definite" stays an error.
     """
     kept, block = [], None
     for line in lines:
@@ -346,7 +347,6 @@ def _without_incomplete_coupling_notes(lines: list[str]) -> list[str]:
             block.append(line)
             said = line.lower()
             if "incomplete set of k couplings" in said and "not positive definite" not in said:
-                kept.append("some coupled inductors have no K line between them (taken as 0)")
                 block = None
             elif "positive definite" in said:
                 kept.extend(block)

@@ -142,13 +142,13 @@ def _simulation_text(netlist: Netlist, analysis: str, added: list[str], options:
     ``options`` go right after the title line.
     """
     text = write_netlist(netlist.replace(added=added), keep_control=False, keep_analyses=False)
-    lines = text.rstrip("\n").split("\n")
+    lines = text.splitlines()
     lines[1:1] = list(options)
     end = next((i for i in range(len(lines) - 1, 0, -1) if lines[i].strip().lower() == ".end"), len(lines))
     # no .options interp: ngspice's own time points keep every breakpoint and corner exact;
     # the compare stage brings the original run onto the augmented run's time base
     lines[end:end] = [".save all", analysis]
-    return "\n".join(lines) + "\n"
+    return netlist.newline.join(lines) + netlist.newline  # CRLF netlists stay CRLF throughout
 
 
 def _node_names(netlist: Netlist, graph: ConductorGraph, book: _NameBook) -> dict[str, str]:
@@ -211,7 +211,7 @@ def _kept_couplings(
     """Pairs to couple; small ones are dropped only if the kept matrix stays definite."""
     k = coupling_coefficients(matrix)
     pairs = [(i, j, float(k[i, j])) for i in range(len(ids)) for j in range(i + 1, len(ids))]
-    strong = [(i, j, kij) for i, j, kij in pairs if abs(kij) >= kmin]
+    strong = [(i, j, kij) for i, j, kij in pairs if abs(kij) >= kmin and kij != 0.0]
     if len(strong) == len([p for p in pairs if p[2] != 0.0]):
         return strong, False
     kept = np.diag(np.diag(matrix)).astype(float)

@@ -375,15 +375,21 @@ class TestRunPlan:
         assert code == 1
         assert (tmp_path / "one" / "summary.csv").read_text() == (local_run["out"] / "summary.csv").read_text()
 
-    def test_same_numbers_on_dask(self, local_run, tmp_path):
-        """A Dask LocalCluster with two worker processes gives the same summary.csv as local workers."""
+    def test_same_numbers_on_dask(self, local_run, tmp_path, monkeypatch):
+        """A Dask LocalCluster with two worker processes gives the same summary as local workers,
+        with the plan named by a path relative to a folder the workers do not run in."""
         distributed = pytest.importorskip("distributed")
         with distributed.LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1", processes=True,
                                       dashboard_address=None) as cluster:
-            code = run_plan(local_run["plan"], tmp_path / "dask", jobs=None, scheduler=cluster.scheduler_address,
-                            junit=None)
+            monkeypatch.chdir(local_run["plan"].parent)
+            code = run_plan(Path(local_run["plan"].name), tmp_path / "dask", jobs=None,
+                            scheduler=cluster.scheduler_address, junit=None)
         assert code == 1
-        assert (tmp_path / "dask" / "summary.csv").read_text() == (local_run["out"] / "summary.csv").read_text()
+        # the paths are written as the plan was named (here relative), and messages quote them
+        paths = {"netlist", "sidefile", "message"}
+        dask_rows = [{k: v for k, v in row.items() if k not in paths} for row in _summary(tmp_path / "dask")]
+        assert dask_rows == [{k: v for k, v in row.items() if k not in paths} for row in local_run["rows"]]
+        assert all(not Path(row["netlist"]).is_absolute() for row in _summary(tmp_path / "dask"))
 
     def test_compare_setups_all_pass(self, compare_run):
         """Two setups on one netlist within a plan-wide limit exit 0 with a row each."""

@@ -77,6 +77,15 @@ class TestSynthesize:
         # R1's terminal 1 gets the body's inner node; its terminal 2 stays on net out
         assert re.search(r"^R1 R1_b out 50$", text, re.MULTILINE)
 
+    def test_rewired_lines_keep_their_inline_comments(self, write_case):
+        """A rewired element keeps its '$' and ';' comments, continuation lines' included."""
+        commented = DIVIDER.replace("R1 in out 50", "R1 in out 50 $ series\n+ ; from the driver").replace(
+            "R2 out 0 50", "R2 out 0 50 ; load")
+        netlist, sidefile = write_case(commented, DIVIDER_SIDEFILE)
+        text = build(netlist, sidefile).augmented.text
+        assert re.search(r"^R1 R1_b out 50 \$ series ; from the driver$", text, re.MULTILINE)
+        assert re.search(r"^R2 \S+ \S+ 50 ; load$", text, re.MULTILINE)
+
     def test_every_added_line_names_its_conductor(self, write_case):
         """Each added element line carries the conductor id it realises."""
         netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
@@ -126,6 +135,15 @@ class TestSynthesize:
         for line in _added_block(built.augmented.text):
             if line.startswith("KX_"):
                 assert abs(float(line.split()[3])) < 1
+
+    def test_kmin_zero_writes_no_zero_couplings(self, write_case):
+        """--kmin 0 keeps every coupling but writes none of exactly 0 (perpendicular pieces)."""
+        built = build(EXAMPLES / "half_bridge" / "switch_node.cir", EXAMPLES / "half_bridge" / "long_ground.toml",
+                      SynthesisOptions(kmin=0.0))
+        # the example's copper runs along x and y only: some pairs are exactly perpendicular
+        assert np.any(built.inductance.henry == 0.0)
+        values = [float(line.split()[3]) for line in _added_block(built.augmented.text) if line.startswith("KX_")]
+        assert values and all(value != 0.0 for value in values)
 
     def test_kmin_drops_weak_couplings(self, write_case):
         """A higher --kmin writes fewer K lines, and only the weak ones go."""
@@ -255,6 +273,62 @@ plus_lead = ["R2.1", [40, 0, 0], [60, -4.5, 0]]
 minus_lead = ["R2.2", [40, -10, 0], [60, -5.5, 0]]
 """
 
+# A pulsed LC filter with a coil, a bus carrying 30 A edges below it, and an ideal probe.
+LC_FILTER = """LC filter bench with a bus below it
+VS in 0 PULSE(0 12 10n 3n 3n 150n 400n)
+RS in a 2
+L1 a b 2u
+RL b 0 22
+CF b 0 470p
+.tran 0.1n 400n
+.end
+"""
+
+LC_FILTER_SIDEFILE = """
+units = "mm"
+wire_radius = 0.3
+
+[terminals]
+VS = [[0, 20, 0], [0, 0, 0]]
+RS = [[0, 20, 0], [10, 20, 0]]
+RL = [[50, 20, 0], [50, 0, 0]]
+CF = [[60, 20, 0], [60, 0, 0]]
+
+[[wire]]
+net = "b"
+path = ["RL.1", "CF.1"]
+
+[[wire]]
+net = "0"
+path = ["VS.2", "RL.2"]
+
+[[wire]]
+net = "0"
+path = ["RL.2", "CF.2"]
+
+[[coil]]
+element = "L1"
+center = [30, 20, 0]
+axis = [1, 0, 0]
+radius = 4
+length = 20
+turns = 25
+
+[[aggressor]]
+name = "bus"
+current = "PULSE(0 30 50n 10n 10n 100n 400n)"
+path = [[-50, -15, 0], [150, -15, 0]]
+radius = 1.5
+
+[[probe]]
+name = "open"
+plus = "RL.1"
+minus = "RL.2"
+instrument = "ideal"
+plus_lead = ["RL.1", [55, 20, 5], [55, 20, 120]]
+minus_lead = ["RL.2", [50, -8, 0], [90, -8, 0], [90, -8, 100], [57, 20, 120]]
+"""
+
 
 class TestAggressors:
     def test_aggressor_is_an_imposed_current(self, write_case, simulator):
@@ -284,6 +358,32 @@ class TestAggressors:
         expected = -mutual * 5 / 10e-9
         assert not math.isclose(expected, 0)
         assert np.median(emf_free[during]) == pytest.approx(expected, rel=0.05)
+
+    def test_ideal_probe_beside_a_pulsed_aggressor_does_not_ring(self, write_case, simulator):
+        """An ideal instrument has no inductance and no capacitance, so nothing rings: the
+        error is M dI/dt, flat pulses during the ramps (Faraday's law), and ringing_hz is none
+        (it once read 4 GHz, a line near Nyquist made of the time steps' corners)."""
+        from augment.pipeline import simulate_and_compare
+
+        netlist, sidefile = write_case(LC_FILTER, LC_FILTER_SIDEFILE)
+        comparison, _, _ = simulate_and_compare(build(netlist, sidefile), simulator)
+        reading = comparison.readings[0]
+        assert np.ptp((reading.probed - reading.ideal).real) > 0
+        assert reading.ringing_hz is None
+
+    def test_passive_probe_beside_a_pulsed_aggressor_rings_at_its_lc(self, write_case, simulator):
+        """The same probe with a passive 10x instrument rings at 1/(2 pi sqrt(L C)) within 5 %,
+        L the loop's self inductance and C the instrument's input capacitance (LC resonance)."""
+        from augment.pipeline import simulate_and_compare
+
+        netlist, sidefile = write_case(LC_FILTER, LC_FILTER_SIDEFILE.replace('"ideal"', '"passive-10x"'))
+        built = build(netlist, sidefile)
+        comparison, _, _ = simulate_and_compare(built, simulator)
+        probe = built.augmented.probes[0]
+        index = built.inductance.ids.index(probe.conductor)
+        loop_henry = built.inductance.henry[index, index]
+        expected = 1 / (2 * math.pi * math.sqrt(loop_henry * probe.instrument.capacitance))
+        assert comparison.readings[0].ringing_hz == pytest.approx(expected, rel=0.05)
 
 
 HIERARCHICAL = """divider whose lower half is a subcircuit
