@@ -57,10 +57,10 @@ _SOURCE_WORDS = frozenset({"DC", "AC", "PULSE", "SIN", "EXP", "PWL", "SFFM", "AM
 # A transient asking for more output points than this is almost surely a scale-factor slip
 # ("5x" is 5e6 in SPICE); it would run for hours (our limit, no source).
 MAX_TIME_POINTS = 1e7
-# How far apart the two lead ends may be at the instrument, in lead radii or in the spacing of
-# the leads just before their ends, whichever is larger (common practice, no source).
+# How far apart the two lead ends may be at the instrument: ten lead radii, or the spacing of
+# the leads just before their ends, whichever is larger; leads that meet come closer at their
+# ends, they do not part (common practice, no source).
 _CLOSE_RADII = 10.0
-_CLOSE_SPACINGS = 3.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -918,7 +918,7 @@ class _Loader:
         limit = _CLOSE_RADII * radius
         if len(plus_lead) > 1 and len(minus_lead) > 1:
             before = np.linalg.norm(np.subtract(plus_lead[-2].position, minus_lead[-2].position))
-            limit = max(limit, _CLOSE_SPACINGS * before)
+            limit = max(limit, before)
         if gap > limit:
             self.fail(f"the leads of {what} end {gap / self.scale:.6g} {self.units} apart; they must meet at "
                       f"the instrument (within {limit / self.scale:.6g} {self.units})", ("probe",), number,

@@ -314,6 +314,14 @@ turns = 12
         assert "the leads of probe 'across_R2' end 30 mm apart; they must meet at the instrument" \
             in error.message
 
+    def test_probe_leads_that_part_at_their_ends_do_not_meet(self):
+        """Ends farther apart (3 mm) than the leads just before them (2 mm) and than ten lead
+        radii (2.5 mm) are an error."""
+        text = BASE + PROBE.replace("[32, 200, 5]]", "[33, 200, 5]]")
+        error = fails(text)
+        assert "the leads of probe 'across_R2' end 3 mm apart; they must meet at the instrument (within 2.5 mm)" \
+            in error.message
+
     def test_probe_leads_may_end_a_few_spacings_apart(self):
         """Lead ends as far apart as the leads run (2 mm here) are accepted."""
         side = load(BASE + PROBE)
