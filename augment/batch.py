@@ -224,7 +224,6 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
     checked = load_plan(plan)
     out = Path(out_dir) if out_dir is not None else Path(f"{Path(plan).stem}-batch")
     _check_out_dir(out, checked, junit)
-    out.mkdir(parents=True, exist_ok=True)
     # absolute: a Dask worker runs in a folder of its own
     tasks = [(case.name, str(case.netlist.resolve()), str(case.sidefile.resolve()), str((out / case.name).resolve()),
               timeout_s) for case in checked.cases]
@@ -232,6 +231,7 @@ def run_plan(plan: Path, out_dir: Path | None, *, jobs: int | None, scheduler: s
     interrupted = False
     by_name = {case.name: case for case in checked.cases}
     runner = _dask_rows(tasks, scheduler) if scheduler else _local_rows(tasks, jobs)
+    out.mkdir(parents=True, exist_ok=True)
     try:
         for row in _with_progress(runner, len(tasks), lambda row: _verdict(by_name[row["case"]], row)):
             finished[row["case"]] = row
@@ -520,8 +520,9 @@ def _leave_interrupt() -> None:
 
 
 def _dask_rows(tasks: list[tuple], scheduler: str) -> Iterator[dict]:
+    """Connect now, so that a bad address fails before anything is written; run as iterated."""
     try:
-        from distributed import Client, as_completed
+        from distributed import Client
     except ImportError:
         raise OptionError("--scheduler", "Dask is not installed; install the package's 'cluster' extra") from None
     try:
@@ -529,6 +530,12 @@ def _dask_rows(tasks: list[tuple], scheduler: str) -> Iterator[dict]:
     except Exception as error:  # noqa: BLE001 - a server that is not a Dask scheduler may answer anything
         raise OptionError("--scheduler", f"cannot reach the Dask scheduler at {scheduler}: "
                           f"{type(error).__name__}: {error}") from None
+    return _dask_results(client, tasks)
+
+
+def _dask_results(client, tasks: list[tuple]) -> Iterator[dict]:
+    from distributed import as_completed
+
     try:
         # pure=False: a fresh key per submission, so a case run twice (or by two batches on
         # one cluster) is two runs, never a shared or cached result.

@@ -480,3 +480,4 @@ class TestBatchCommand:
                                            "--scheduler", "tcp://127.0.0.1:9"])
         assert result.exit_code == 2
         assert "cannot reach the Dask scheduler" in result.output
+        assert not (tmp_path / "out").exists()  # nothing written for a batch that never started
