@@ -142,7 +142,7 @@ def _simulation_text(netlist: Netlist, analysis: str, added: list[str], options:
     ``options`` go right after the title line.
     """
     text = write_netlist(netlist.replace(added=added), keep_control=False, keep_analyses=False)
-    lines = text.splitlines()
+    lines = re.split(r"\r?\n", text.rstrip("\r\n"))  # not splitlines(): form feeds stay inside lines
     lines[1:1] = list(options)
     end = next((i for i in range(len(lines) - 1, 0, -1) if lines[i].strip().lower() == ".end"), len(lines))
     # no .options interp: ngspice's own time points keep every breakpoint and corner exact;

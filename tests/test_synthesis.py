@@ -86,6 +86,13 @@ class TestSynthesize:
         assert re.search(r"^R1 R1_b out 50 \$ series ; from the driver$", text, re.MULTILINE)
         assert re.search(r"^R2 \S+ \S+ 50 ; load$", text, re.MULTILINE)
 
+    def test_crlf_netlist_stays_crlf(self, write_case):
+        """A netlist with CRLF line ends gets CRLF on every line, the added ones included."""
+        netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
+        netlist.write_bytes(DIVIDER.replace("\n", "\r\n").encode())
+        text = build(netlist, sidefile).augmented.text
+        assert text.count("\n") == text.count("\r\n") > 10
+
     def test_every_added_line_names_its_conductor(self, write_case):
         """Each added element line carries the conductor id it realises."""
         netlist, sidefile = write_case(DIVIDER, DIVIDER_SIDEFILE)
