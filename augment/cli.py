@@ -141,7 +141,7 @@ def _relative_include(netlist):
 @main.command()
 @_netlist_arg
 @_sidefile_opt
-@click.option("-o", "--output", "out_dir", type=click.Path(file_okay=False), help="Report folder (default NETLIST-report).")
+@click.option("-o", "--output", "out_dir", type=click.Path(file_okay=False), help="Report folder (default STEM-report: the netlist's name without its suffix).")
 @click.option("--json", "as_json", is_flag=True, help="Print the result document on stdout.")
 @click.option("--timeout", type=click.FloatRange(min=1), default=300.0, show_default=True, help="Seconds per simulation.")
 @_coupling_opt

@@ -113,6 +113,8 @@ def result_document(built: Built, comparison, sidefile_path: str | Path, elapsed
             # beyond SPEC's keys: a differential input's resistance from each side to its reference
             "reference_resistance": instrument.reference_resistance if instrument.differential else None,
         }
+        top = row["contributions"][0] if row["contributions"] else {"source": "", "peak_v": 0.0}
+        row["top_source"], row["top_peak_v"] = top["source"], top["peak_v"]  # as summary.csv has them
         row["conductor"] = reading.probe.conductor
         row["lead_length_m"] = reading.probe.lead_length_m
         row["paths"] = {

@@ -367,6 +367,9 @@ class TestResultDocument:
         assert set(probe["instrument"]) >= {"name", "resistance", "capacitance", "bandwidth"}
         for c in probe["contributions"]:
             assert set(c) == {"source", "mutual_h", "peak_v"}
+        # beyond SPEC: the largest contribution, as summary.csv gives it
+        assert (probe["top_source"], probe["top_peak_v"]) == (probe["contributions"][0]["source"],
+                                                              probe["contributions"][0]["peak_v"])
         files = {p.name for p in (tmp_path / "report").iterdir()}
         assert {"readings.csv", "summary.csv", "result.json", "long_ground.png"} <= files
         header = (tmp_path / "report" / "readings.csv").read_text().splitlines()[0].split(",")
