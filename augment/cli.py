@@ -111,8 +111,8 @@ def build(netlist, sidefile, output, coupling, kmin, analysis):
     if output and Path(output).resolve() in {Path(netlist).resolve(), Path(sidefile).resolve()}:
         raise OptionError(output, "refusing to overwrite an input file; choose another -o")
     built = build_netlist(netlist, sidefile, _synthesis_options(coupling, kmin, analysis))
-    if output and Path(output).resolve() in built.netlist.included_files:
-        raise OptionError(output, "refusing to overwrite a file the netlist includes; choose another -o")
+    if output:
+        _refuse_included(output, built.netlist)
     _warn(built.warnings)
     if output:
         relative = _relative_include(built.netlist)
@@ -125,6 +125,12 @@ def build(netlist, sidefile, output, coupling, kmin, analysis):
         )
     else:
         click.echo(built.augmented.text, nl=False)
+
+
+def _refuse_included(output: str, netlist) -> None:
+    """-o may not name a file the netlist reads through .include or .lib."""
+    if Path(output).resolve() in netlist.included_files:
+        raise OptionError(output, "refusing to overwrite a file the netlist includes; choose another -o")
 
 
 def _relative_include(netlist):
@@ -192,8 +198,7 @@ def view(netlist, sidefile, output):
     if Path(output).resolve() in {Path(netlist).resolve(), Path(sidefile).resolve()}:
         raise OptionError(output, "refusing to overwrite an input file; choose another -o")
     parsed, graph = place(parse_netlist(netlist), sidefile)
-    if Path(output).resolve() in parsed.included_files:
-        raise OptionError(output, "refusing to overwrite a file the netlist includes; choose another -o")
+    _refuse_included(output, parsed)
     _warn(graph.warnings)
     draw_geometry(graph, parsed, Path(output))
     click.echo(f"wrote {output}", err=True)

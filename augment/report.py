@@ -227,14 +227,8 @@ SUMMARY_COLUMNS = (
 
 def summary_rows(document: dict) -> list[dict]:
     """One flat row per probe of a result document (for summary.csv and terminal tables)."""
-    rows = []
-    for probe in document["probes"]:
-        top = probe["contributions"][0] if probe["contributions"] else {"source": "", "peak_v": 0.0}
-        row = {key: probe.get(key) for key in SUMMARY_COLUMNS if key in probe}
-        row["instrument"] = probe["instrument"]["name"]
-        row["top_source"], row["top_peak_v"] = top["source"], top["peak_v"]
-        rows.append({key: row.get(key) for key in SUMMARY_COLUMNS})
-    return rows
+    return [{**{key: probe.get(key) for key in SUMMARY_COLUMNS}, "instrument": probe["instrument"]["name"]}
+            for probe in document["probes"]]
 
 
 def format_table(rows: list[dict], columns: list[str]) -> str:
